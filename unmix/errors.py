@@ -1,0 +1,75 @@
+"""Errors and warnings raised by unmix.
+
+Every error derives from :class:`UnmixError` and also from the builtin exception it resembles, so
+``except ValueError`` keeps working for callers who do not know this package. Every warning derives
+from :class:`UnmixWarning`, so users can filter the package's warnings as a group or one by one.
+Messages name the file, band, date or parameter at fault and say how to fix it.
+"""
+
+from __future__ import annotations
+
+__all__ = [
+    "UnmixError",
+    "InputError",
+    "ShapeError",
+    "BandMismatchError",
+    "RankError",
+    "LibraryFormatError",
+    "UnknownNameError",
+    "StackReadError",
+    "GridMismatchError",
+    "OutputExistsError",
+    "UnmixWarning",
+    "CollinearityWarning",
+]
+
+
+class UnmixError(Exception):
+    """Root of every error raised on purpose by unmix."""
+
+
+class InputError(UnmixError, ValueError):
+    """An argument has a value that cannot be used (range, dtype, missing values)."""
+
+
+class ShapeError(InputError):
+    """Array shapes do not fit together."""
+
+
+class BandMismatchError(InputError):
+    """Band counts or band names of two inputs disagree."""
+
+
+class RankError(InputError):
+    """More endmembers than the bands can separate."""
+
+
+class LibraryFormatError(InputError):
+    """A spectral library or response file breaks the documented format (file, line and column named)."""
+
+
+class UnknownNameError(InputError, KeyError):
+    """A sensor, band, endmember or method name is not known; the message lists the known ones."""
+
+    def __str__(self) -> str:  # KeyError would quote the message
+        return str(self.args[0]) if self.args else ""
+
+
+class StackReadError(UnmixError, OSError):
+    """A file of an image stack cannot be found, opened or read."""
+
+
+class GridMismatchError(InputError):
+    """Dates of a stack are not on one grid (CRS, transform or shape)."""
+
+
+class OutputExistsError(UnmixError, FileExistsError):
+    """A product exists already and ``overwrite`` was not asked for."""
+
+
+class UnmixWarning(UserWarning):
+    """Root of every warning issued by unmix."""
+
+
+class CollinearityWarning(UnmixWarning):
+    """Two endmembers are so alike that their fractions are poorly determined."""
