@@ -17,6 +17,7 @@ __all__ = [
     "LibraryFormatError",
     "UnknownNameError",
     "StackReadError",
+    "LibraryReadError",
     "GridMismatchError",
     "OutputExistsError",
     "UnmixWarning",
@@ -57,6 +58,10 @@ class UnknownNameError(InputError, KeyError):
 
 class StackReadError(UnmixError, OSError):
     """A file of an image stack cannot be found, opened or read."""
+
+
+class LibraryReadError(UnmixError, OSError):
+    """A spectral library or response file cannot be found or opened (the path is named)."""
 
 
 class GridMismatchError(InputError):

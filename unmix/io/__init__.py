@@ -1,0 +1,1 @@
+"""File input and output: the only code in unmix that opens paths (stacks, libraries, products)."""
