@@ -1,0 +1,474 @@
+"""Tests of unmix.trend against published worked examples and general-purpose references.
+
+References used: pymannkendall (original / pre-whitening / trend-free pre-whitening / Hamed-Rao /
+seasonal tests), scipy.stats (kendalltau, theilslopes, false_discovery_control), statsmodels
+(multipletests), the values in ../shared/CHECKS.md, and slow obvious implementations below.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+
+import numpy as np
+import pymannkendall as pmk
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from scipy import stats
+from statsmodels.stats.multitest import multipletests
+
+from unmix.errors import InputError, ShapeError, UnknownNameError
+from unmix.trend import (
+    DEFAULT_CORRECTION,
+    MannKendallCorrection,
+    fdr,
+    mann_kendall,
+    pettitt,
+    seasonal_kendall,
+    sen_slope,
+)
+
+HOLY_CROSS = np.array([12.9, 14.8, 13.2, 15.7, 13.8, 15.6, 12.9, 11.0, 17.3, 15.9, 19.0, 18.3,
+                       20.1, 21.7])
+PMK = {
+    "none": pmk.original_test,
+    "prewhiten": pmk.pre_whitening_modification_test,
+    "trend-free-prewhiten": pmk.trend_free_pre_whitening_modification_test,
+    "hamed-rao": pmk.hamed_rao_modification_test,
+}
+_PMK_ACF = getattr(pmk.pymannkendall, "__acf")
+
+
+def _series_with_ties_and_nans(rng, n_series, n_time, min_valid, nan_frac=0.15, decimals=1):
+    """AR(1)-ish series with a random trend, rounded (ties) and with NaN gaps."""
+    e = rng.standard_normal((n_series, n_time))
+    for k in range(1, n_time):
+        e[:, k] += 0.4 * e[:, k - 1]
+    slope = rng.normal(0, 0.08, (n_series, 1))
+    y = np.round(e + slope * np.arange(n_time), decimals)
+    mask = rng.random((n_series, n_time)) < nan_frac
+    # keep at least min_valid valid values in every series
+    for r in range(n_series):
+        while (~mask[r]).sum() < min_valid:
+            mask[r, rng.integers(n_time)] = False
+    y[mask] = np.nan
+    return y
+
+
+# ---------------------------------------------------------------------------------------------
+# Mann-Kendall: published worked examples (CHECKS.md)
+# ---------------------------------------------------------------------------------------------
+def test_mann_kendall_holy_cross_worked_example():
+    # "Mann-Kendall by hand", College of the Holy Cross (CHECKS.md): S=54, Var=332.667, Z=2.9058,
+    # two-sided p 0.00366, tau 0.5934
+    r = mann_kendall(HOLY_CROSS)
+    assert r.s == 54
+    assert r.var_s == pytest.approx(332.667, abs=1e-3)
+    assert r.z == pytest.approx(2.9058, abs=1e-4)
+    assert r.p_value == pytest.approx(0.00366, abs=1e-5)
+    assert r.tau == pytest.approx(0.5934, abs=1e-4)
+    assert r.n == 14
+
+
+def test_mann_kendall_epa_two_tie_groups():
+    # US EPA QA/G-9S example as quoted in CHECKS.md (from memory): S=22, Var=155.33, Z=1.685
+    r = mann_kendall([10, 10, 10, 5, 10, 20, 18, 17, 15, 24, 15])
+    assert r.s == 22
+    assert r.var_s == pytest.approx(155.33, abs=5e-3)
+    assert r.z == pytest.approx(1.685, abs=5e-4)
+
+
+@pytest.mark.parametrize(
+    ("y", "one_sided"),
+    [  # CHECKS.md: exact null distribution P(S >= s) (enumeration; Kendall's tables, Gilbert A18)
+        ([1, 2, 3, 4], 0.0417),  # n=4, s=6
+        ([2, 1, 3, 4], 0.1667),  # n=4, s=4
+        ([1, 2, 3, 4, 5], 0.0083),  # n=5, s=10
+        ([2, 1, 3, 4, 5], 0.0417),  # n=5, s=8
+        ([1, 2, 3, 4, 5, 6], 0.0014),  # n=6, s=15
+        ([2, 1, 3, 4, 5, 6], 0.0083),  # n=6, s=13
+    ],
+)
+def test_exact_small_n_null_distribution(y, one_sided):
+    r = mann_kendall(np.asarray(y, float))
+    assert r.p_value / 2 == pytest.approx(one_sided, abs=5e-5)
+    # decreasing series give the same two-sided p
+    assert mann_kendall(-np.asarray(y, float)).p_value == r.p_value
+
+
+def _exact_p_by_enumeration(n, s):
+    # slow obvious reference: enumerate all n! orders
+    count = 0
+    total = 0
+    for perm in itertools.permutations(range(n)):
+        sp = sum(np.sign(perm[j] - perm[i]) for i in range(n) for j in range(i + 1, n))
+        count += abs(sp) >= abs(s)
+        total += 1
+    return count / total
+
+
+def test_exact_p_matches_scipy_kendalltau_exact():
+    # scipy.stats.kendalltau(method="exact") gives the exact two-sided permutation p-value of S
+    rng = np.random.default_rng(1)
+    y = np.array([rng.permutation(10) for _ in range(300)], float)
+    lengths = rng.integers(3, 11, size=300)
+    for r, m in enumerate(lengths):
+        y[r, m:] = np.nan
+    res = mann_kendall(y)
+    for r, m in enumerate(lengths):
+        ref = stats.kendalltau(np.arange(m), y[r, :m], method="exact").pvalue
+        assert res.p_value[r] == pytest.approx(ref, rel=1e-10, abs=1e-14), (r, m)
+    # and one small case by brute-force enumeration
+    small = np.array([3.0, 1.0, 4.0, 2.0, 5.0])
+    assert mann_kendall(small).p_value == pytest.approx(
+        _exact_p_by_enumeration(5, mann_kendall(small).s), rel=1e-12)
+
+
+# ---------------------------------------------------------------------------------------------
+# Mann-Kendall against pymannkendall on many generated series (ties + NaN)
+# ---------------------------------------------------------------------------------------------
+def _has_rounding_ties(x, correction, slope):
+    """True if the pre-whitened (or, for Hamed-Rao, detrended) series, computed as in
+    pymannkendall's source, has two values that are equal in exact arithmetic but differ by
+    rounding; there the reference's S (or ranks) depend on the last bit while ours counts them as
+    ties (documented tolerance)."""
+    n = x.size
+    if correction == "hamed-rao":  # ranks of the detrended series
+        w = x - np.arange(1, n + 1) * slope
+    elif correction == "none":
+        return False
+    else:
+        b = slope if correction == "trend-free-prewhiten" else 0.0
+        xd = x - np.arange(1, n + 1) * b
+        r1 = _PMK_ACF(xd, nlags=1)[1]  # the reference's own lag-1 autocorrelation, to the bit
+        w = xd[1:] - xd[:-1] * r1 + np.arange(1, n) * b
+    diff = np.abs(w[:, None] - w[None, :])
+    return bool(((diff > 0) & (diff < 1e-9 * np.abs(w).max())).any())
+
+
+@pytest.mark.filterwarnings("ignore:invalid value encountered in sqrt:RuntimeWarning")
+@pytest.mark.parametrize("correction", list(PMK))
+def test_mann_kendall_matches_pymannkendall(correction):
+    # pymannkendall tests, run on the series after dropping NaN (our kernels drop NaN per series).
+    # At least 12 valid values, so the series S is computed on has > 10 values and the normal p
+    # applies (pymannkendall has no exact small-n p).
+    rng = np.random.default_rng(list(PMK).index(correction))
+    y = _series_with_ties_and_nans(rng, 250, 30, min_valid=12)
+    res = mann_kendall(y, correction=correction)
+    func = PMK[correction]
+    skipped = 0
+    for r in range(y.shape[0]):
+        x = y[r][~np.isnan(y[r])]
+        ref = func(x)
+        if _has_rounding_ties(x, correction, ref.slope):
+            skipped += 1
+            continue
+        assert res.n[r] == x.size
+        assert res.s[r] == ref.s, r
+        assert res.var_s[r] == pytest.approx(ref.var_s, rel=1e-9), r
+        if np.isfinite(ref.z):
+            assert res.z[r] == pytest.approx(ref.z, rel=1e-9, abs=1e-12), r
+            assert res.p_value[r] == pytest.approx(ref.p, rel=1e-8, abs=1e-14), r
+        else:  # Hamed-Rao factor <= 0: pymannkendall's sqrt of a negative variance is NaN too
+            assert np.isnan(res.z[r]) and np.isnan(res.p_value[r])
+        assert res.tau[r] == pytest.approx(ref.Tau, rel=1e-12), r
+    # near-ties are rare after pre-whitening; for Hamed-Rao the pair that sets the Sen slope is an
+    # exact tie of the detrended series in about half of the series, so fewer are compared there
+    assert y.shape[0] - skipped >= 100
+
+
+def test_mann_kendall_float32_and_3d_batch_equals_one_by_one():
+    # batched 3-d input equals series-by-series calls (property); statistics are float64
+    rng = np.random.default_rng(2)
+    y = _series_with_ties_and_nans(rng, 24, 20, min_valid=3).reshape(2, 3, 4, 20)
+    y = np.moveaxis(y, -1, 1).astype(np.float32)  # time on axis 1
+    for corr in MannKendallCorrection:
+        res = mann_kendall(y, axis=1, correction=corr)
+        assert res.z.shape == (2, 3, 4) and res.z.dtype == np.float64
+        assert res.n.dtype == np.int64
+        for a, b, c in np.ndindex(2, 3, 4):
+            one = mann_kendall(y[a, :, b, c], correction=corr)
+            for field in ("s", "var_s", "z", "p_value", "tau", "n"):
+                np.testing.assert_equal(getattr(res, field)[a, b, c], getattr(one, field))
+
+
+def test_mann_kendall_nan_dropped_equals_compacted():
+    rng = np.random.default_rng(3)
+    y = _series_with_ties_and_nans(rng, 50, 25, min_valid=5)
+    for corr in MannKendallCorrection:
+        res = mann_kendall(y, correction=corr)
+        for r in range(0, 50, 7):
+            one = mann_kendall(y[r][~np.isnan(y[r])], correction=corr)
+            np.testing.assert_equal([res.s[r], res.z[r], res.p_value[r]],
+                                    [one.s, one.z, one.p_value])
+
+
+def test_mann_kendall_reverse_flips_sign_and_constant_changes_nothing():
+    # property (Mann 1945 statistic is antisymmetric under time reversal; rank-based = shift-free).
+    # Values on a 1/4 grid so that the added constant is exact in binary.
+    rng = np.random.default_rng(4)
+    y = np.round(rng.normal(size=(200, 20)) * 4) / 4 + 0.03 * np.arange(20)
+    y = np.round(y * 4) / 4
+    for corr in ("none", "hamed-rao"):
+        a = mann_kendall(y, correction=corr)
+        b = mann_kendall(y[:, ::-1], correction=corr)
+        np.testing.assert_array_equal(a.s, -b.s)
+        np.testing.assert_allclose(a.z, -b.z, rtol=1e-12, atol=1e-14)
+        np.testing.assert_allclose(a.p_value, b.p_value, rtol=1e-12)
+    for corr in MannKendallCorrection:
+        a = mann_kendall(y, correction=corr)
+        c = mann_kendall(y + 8.0, correction=corr)
+        np.testing.assert_array_equal(a.s, c.s)
+        np.testing.assert_allclose(a.z, c.z, rtol=1e-9, atol=1e-12)
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.lists(st.integers(-3, 3), min_size=3, max_size=25))
+def test_mann_kendall_reverse_property_hypothesis(vals):
+    y = np.asarray(vals, float)
+    a = mann_kendall(y)
+    b = mann_kendall(y[::-1])
+    assert a.s == -b.s
+    assert a.var_s == b.var_s
+    assert a.p_value == pytest.approx(b.p_value, rel=1e-12)
+
+
+def test_mann_kendall_irregular_and_tied_times_match_scipy_kendalltau():
+    # t orders the values; pairs with equal t count zero and Var(S) is Kendall's two-way tie formula,
+    # the same S and variance as scipy.stats.kendalltau(t, y, method="asymptotic") (whose z has no
+    # continuity correction, so compare S / sqrt(Var S)).
+    rng = np.random.default_rng(5)
+    t = np.sort(rng.choice(np.arange(2000.0, 2010.0, 0.25), 30))  # repeated dates
+    perm = rng.permutation(30)
+    y = np.round(rng.normal(size=(150, 30)) + 0.05 * (t - 2000), 1)
+    y[rng.random(y.shape) < 0.1] = np.nan
+    res = mann_kendall(y[:, perm], t=t[perm])  # unsorted t must be sorted by the kernel
+    for r in range(150):
+        ok = ~np.isnan(y[r])
+        ref = stats.kendalltau(t[ok], y[r, ok], method="asymptotic")
+        zref = stats.norm.isf(ref.pvalue / 2)
+        ours = abs(res.s[r]) / math.sqrt(res.var_s[r])
+        assert ours == pytest.approx(zref, rel=1e-7, abs=1e-9), r
+
+
+def test_mann_kendall_edge_cases():
+    # documented choices: < 3 valid values -> NaN; all equal -> S=0, Var=0, Z=0, p=1
+    y = np.array([[np.nan] * 5, [1.0, np.nan, 2.0, np.nan, np.nan], [0.2] * 4 + [np.nan]])
+    for corr in MannKendallCorrection:
+        r = mann_kendall(y, correction=corr)
+        assert np.isnan(r.s[:2]).all() and np.isnan(r.p_value[:2]).all()
+        np.testing.assert_array_equal(r.n, [0, 2, 4])
+        assert (r.s[2], r.var_s[2], r.z[2], r.p_value[2]) == (0, 0, 0, 1)
+
+
+def test_default_correction_controls_false_positives_under_ar1():
+    # project requirement (study in benchmarks/study_correction.py): the default correction keeps
+    # the false-positive rate <= 0.10 at nominal 0.05 for AR(1) noise, phi = 0.6, n = 30. The
+    # uncorrected test must exceed it on the same data (Hamed & Rao 1998; Yue et al. 2002 report
+    # the inflation), otherwise the check would not discriminate.
+    rng = np.random.default_rng(11)
+    phi, n = 0.6, 30
+    x = np.empty((2000, n))
+    x[:, 0] = rng.standard_normal(2000)
+    for k in range(1, n):
+        x[:, k] = phi * x[:, k - 1] + np.sqrt(1 - phi**2) * rng.standard_normal(2000)
+    fpr_default = np.mean(mann_kendall(x, correction=DEFAULT_CORRECTION).p_value < 0.05)
+    fpr_none = np.mean(mann_kendall(x, correction="none").p_value < 0.05)
+    assert fpr_default <= 0.10
+    assert fpr_none > 0.15
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.integers(0, 6), min_size=1, max_size=80), st.data())
+def test_private_select_matches_sort(vals, data):
+    # the quickselect behind the Sen medians of the corrections, against numpy's sort
+    from unmix._trend_numba import _select
+
+    a = np.asarray(vals, float)
+    k = data.draw(st.integers(0, a.size - 1))
+    b = a.copy()
+    _select(b, 0, b.size, k, np.empty(b.size))
+    assert b[k] == np.sort(a)[k]
+    assert (b[:k] <= b[k]).all() and (b[k + 1:] >= b[k]).all()
+
+
+def test_mann_kendall_bad_arguments():
+    with pytest.raises(UnknownNameError, match="correction"):
+        mann_kendall(HOLY_CROSS, correction="yue-wang")
+    with pytest.raises(ShapeError, match="t must be 1-d"):
+        mann_kendall(HOLY_CROSS, t=np.arange(5.0))
+    with pytest.raises(InputError, match="finite"):
+        mann_kendall(HOLY_CROSS, t=np.r_[np.arange(13.0), np.nan])
+    with pytest.raises(InputError, match="NaN"):
+        mann_kendall(np.r_[HOLY_CROSS, np.inf])
+    with pytest.raises(InputError, match="decimal years"):
+        sen_slope(HOLY_CROSS, t=np.arange(14).astype("datetime64[D]"))
+    assert DEFAULT_CORRECTION in set(MannKendallCorrection)
+
+
+# ---------------------------------------------------------------------------------------------
+# Seasonal Kendall
+# ---------------------------------------------------------------------------------------------
+@pytest.mark.parametrize("period", [4, 12])
+def test_seasonal_kendall_matches_pymannkendall(period):
+    # pymannkendall.seasonal_test on a regular series (season = step mod period), NaNs included
+    rng = np.random.default_rng(period)
+    n = 6 * period + period // 2  # not a whole number of cycles
+    y = _series_with_ties_and_nans(rng, 120, n, min_valid=3 * period)
+    y += np.sin(2 * np.pi * np.arange(n) / period)
+    res = seasonal_kendall(y, season=np.arange(n) % period)
+    labels = np.array([f"s{k % period:02d}" for k in range(n)])  # any hashable labels
+    res_lab = seasonal_kendall(y, season=labels)
+    np.testing.assert_array_equal(res.z, res_lab.z)
+    for r in range(y.shape[0]):
+        ref = pmk.seasonal_test(y[r], period=period)
+        assert res.s[r] == ref.s
+        assert res.var_s[r] == pytest.approx(ref.var_s, rel=1e-12)
+        assert res.z[r] == pytest.approx(ref.z, rel=1e-9, abs=1e-12)
+        assert res.p_value[r] == pytest.approx(ref.p, rel=1e-8, abs=1e-14)
+        assert res.tau[r] == pytest.approx(ref.Tau, rel=1e-12)
+
+
+def test_seasonal_kendall_one_season_is_mann_kendall_normal_p():
+    # one season: S and Var equal the Mann-Kendall ones (Hirsch et al. 1982 reduce to Mann 1945)
+    r1 = seasonal_kendall(HOLY_CROSS, season=np.zeros(14))
+    r0 = mann_kendall(HOLY_CROSS)
+    assert (r1.s, r1.var_s, r1.z) == (r0.s, r0.var_s, r0.z)
+    with pytest.raises(ShapeError, match="season"):
+        seasonal_kendall(HOLY_CROSS, season=np.zeros(3))
+
+
+# ---------------------------------------------------------------------------------------------
+# Sen slope
+# ---------------------------------------------------------------------------------------------
+def test_sen_slope_holy_cross():
+    # CHECKS.md (computed; identical to scipy.stats.theilslopes): 0.566667, CI [0.325, 0.866667]
+    r = sen_slope(HOLY_CROSS)
+    assert r.slope == pytest.approx(0.566667, abs=1e-6)
+    assert r.low == pytest.approx(0.325, abs=1e-6)
+    assert r.high == pytest.approx(0.866667, abs=1e-6)
+
+
+@pytest.mark.parametrize("confidence", [0.95, 0.9, 0.99])
+def test_sen_slope_matches_scipy_theilslopes(confidence):
+    # scipy.stats.theilslopes(y, t, alpha=confidence) on the valid values, irregular tied times,
+    # tied values (one decimal) and NaN gaps; slope, intercept and interval must agree
+    rng = np.random.default_rng(int(confidence * 100))
+    nt = 25
+    t = 2000 + np.sort(rng.choice(np.arange(0, 12, 0.25), nt))
+    y = _series_with_ties_and_nans(rng, 300, nt, min_valid=2, nan_frac=0.3)
+    y[:5, :-2] = np.nan  # a few two-value series
+    res = sen_slope(y, t, confidence=confidence)
+    for r in range(y.shape[0]):
+        ok = ~np.isnan(y[r])
+        if np.unique(t[ok]).size < 2:
+            assert np.isnan(res.slope[r])
+            continue
+        ref = stats.theilslopes(y[r, ok], t[ok], alpha=confidence)
+        np.testing.assert_allclose(
+            [res.slope[r], res.intercept[r], res.low[r], res.high[r]],
+            [ref.slope, ref.intercept, ref.low_slope, ref.high_slope], rtol=1e-10, atol=1e-9,
+            err_msg=f"series {r}")
+
+
+def test_sen_slope_properties_and_dtype():
+    rng = np.random.default_rng(7)
+    y = _series_with_ties_and_nans(rng, 40, 18, min_valid=4).astype(np.float32)
+    t = np.linspace(2001.0, 2018.5, 18)
+    r = sen_slope(y, t)
+    assert r.slope.dtype == np.float32 and r.low.dtype == np.float32  # float32 stays float32
+    # reversing the series flips slope sign and swaps the interval (property)
+    rr = sen_slope(y[:, ::-1], t)
+    np.testing.assert_allclose(rr.slope, -r.slope, rtol=1e-6)
+    np.testing.assert_allclose(rr.low, -r.high, rtol=1e-6)
+    # NaN positions keep their time: same as the compacted series with its own times
+    for k in range(0, 40, 9):
+        ok = ~np.isnan(y[k])
+        one = sen_slope(y[k][ok], t[ok])
+        assert (one.slope, one.low, one.high) == (r.slope[k], r.low[k], r.high[k])
+    # 3-d equals one by one
+    y3 = y.reshape(4, 10, 18)
+    r3 = sen_slope(y3, t)
+    np.testing.assert_array_equal(r3.slope.reshape(-1), r.slope)
+    with pytest.raises(InputError, match="confidence level"):
+        sen_slope(y, t, confidence=0.05)
+
+
+# ---------------------------------------------------------------------------------------------
+# Pettitt
+# ---------------------------------------------------------------------------------------------
+def _pettitt_reference(x):
+    # slow obvious implementation of Pettitt (1979): U_t by the double sum, first argmax
+    n = x.size
+    u = [sum(np.sign(x[i] - x[j]) for i in range(t) for j in range(t, n)) for t in range(1, n)]
+    k = max(abs(v) for v in u)
+    t = int(np.argmax(np.abs(u)))  # index of the last value before the change
+    return k, t, min(1.0, 2 * math.exp(-6 * k**2 / (n**3 + n**2)))
+
+
+def test_pettitt_step_checks_md():
+    # CHECKS.md (computed): ten values then ten higher -> K = 100 at t = 10 (index 9), p ~ 0.00158
+    r = pettitt(np.r_[np.full(10, 0.2), np.full(10, 0.5)])
+    assert r.k == 100
+    assert r.index == 9
+    assert r.p_value == pytest.approx(0.00158, abs=5e-6)
+
+
+def test_pettitt_matches_reference_with_nans_on_original_axis():
+    rng = np.random.default_rng(8)
+    y = _series_with_ties_and_nans(rng, 120, 22, min_valid=3)
+    y[:, 11:] += rng.normal(0, 1.5, (120, 1))  # some steps
+    res = pettitt(y)
+    for r in range(120):
+        ok = np.flatnonzero(~np.isnan(y[r]))
+        k, t, p = _pettitt_reference(y[r, ok])
+        assert res.k[r] == k
+        assert res.p_value[r] == pytest.approx(p, rel=1e-12)
+        if k > 0:
+            assert res.index[r] == ok[t]  # position on the ORIGINAL time axis
+    assert np.isnan(pettitt(np.ones(6)).index)  # K = 0: no change point (documented)
+    assert np.isnan(pettitt([1.0, np.nan, 2.0]).k)
+
+
+# ---------------------------------------------------------------------------------------------
+# FDR
+# ---------------------------------------------------------------------------------------------
+BH_P = np.array([0.0001, 0.0004, 0.0019, 0.0095, 0.0201, 0.0278, 0.0298, 0.0344, 0.0459, 0.3240,
+                 0.4262, 0.5719, 0.6528, 0.7590, 1.000])
+
+
+def test_fdr_benjamini_hochberg_1995_example():
+    # Benjamini & Hochberg (1995) worked example (CHECKS.md): BH rejects 4 at q = 0.05
+    reject, adj = fdr(BH_P, 0.05)
+    assert reject.sum() == 4 and reject[:4].all()
+    expected = [0.0015, 0.003, 0.0095, 0.035625, 0.0603, 0.063857, 0.063857, 0.0645, 0.0765,
+                0.486, 0.581182, 0.714875, 0.753231, 0.813214, 1]
+    np.testing.assert_allclose(adj, expected, atol=1e-6)
+
+
+@pytest.mark.parametrize("method", ["bh", "by"])
+def test_fdr_matches_scipy_and_statsmodels(method):
+    # scipy.stats.false_discovery_control (adjusted) and statsmodels multipletests (reject) on the
+    # valid values of a 3-d map with NaN
+    rng = np.random.default_rng(9)
+    for _ in range(20):
+        p = rng.uniform(size=(3, 7, 9)) ** rng.uniform(1, 6)
+        p[rng.random(p.shape) < 0.2] = np.nan
+        q = rng.uniform(0.01, 0.2)
+        reject, adj = fdr(p, q, method=method)
+        ok = ~np.isnan(p)
+        np.testing.assert_allclose(adj[ok], stats.false_discovery_control(p[ok], method=method),
+                                   rtol=1e-12)
+        sm = multipletests(p[ok], alpha=q, method="fdr_bh" if method == "bh" else "fdr_by")
+        np.testing.assert_array_equal(reject[ok], sm[0])
+        assert not reject[~ok].any() and np.isnan(adj[~ok]).all()
+
+
+def test_fdr_bad_arguments():
+    with pytest.raises(InputError, match="q"):
+        fdr(BH_P, q=5)
+    with pytest.raises(InputError, match="p-values"):
+        fdr([0.5, 1.5])
+    with pytest.raises(UnknownNameError, match="bh"):
+        fdr(BH_P, method="bonferroni")
