@@ -4,7 +4,9 @@ Every kernel takes a C-contiguous ``(n_series, n_time)`` float64 array in which 
 value and writes one value per series into preallocated outputs. The ``*_batch`` kernels run a
 ``prange`` over a few chunks of series per thread, with scratch buffers allocated once per chunk
 (allocating per series cost more than the tests themselves); the Sen slope is split in two
-``nogil`` block kernels around numpy's row sort. Inner loops over pairs are written branch-free
+``nogil`` block kernels around numpy's row sort. The Sen medians inside the corrections (one
+for trend-free pre-whitening and Hamed-Rao, one per round of iterative pre-whitening) use a
+sampled-band quickselect (:func:`_median_band`). Inner loops over pairs are written branch-free
 so that they vectorise. Validation, dtype handling and reshaping live in
 :mod:`unmix.trend`; nothing here raises for bad data, it writes NaN instead.
 """
@@ -21,6 +23,18 @@ NONE = 0
 PREWHITEN = 1
 TREND_FREE_PREWHITEN = 2
 HAMED_RAO = 3
+ITERATIVE_PREWHITEN = 4
+
+# iterative pre-whitening (Zhang et al. 2000; Wang & Swail 2001), see ``_iterative_prewhiten``
+IPW_MIN_R = 0.05  # below this bias-corrected lag-1 autocorrelation the series is not whitened
+IPW_MAX_R = 0.99  # cap (our choice) so that 1 - r stays positive when the estimate reaches 1
+IPW_MAX_ITER = 20
+# convergence: rho and the slope each change by <= 1 % between rounds (absolute guards for values
+# near zero: 1e-4 for rho, 1e-4 residual sd over the record for the slope). The Sen median moves
+# in discrete jumps, so tighter tolerances end in two-round cycles rather than convergence.
+IPW_TOL = 0.01
+IPW_TOL_R_ABS = 1e-4
+IPW_TOL_B_ABS = 1e-4
 
 EXACT_MAX_N = 10
 _SQRT2 = math.sqrt(2.0)
@@ -184,16 +198,70 @@ def _median_inplace(a, m, tmp):
     return 0.5 * (lo + hi)
 
 
+_SAMPLE = 63  # sample size of the pivot estimate in _median_band
+_SAMPLE_HALF_WIDTH = 8  # band = sample ranks median +- 8 (about +-2 sd of the sample median)
+
+
+@njit(cache=True)
+def _median_band(a, m, tmp):
+    """Median of a[:m] (m >= 1); reorders a and overwrites tmp (len >= m).
+
+    The sampling idea of Floyd & Rivest (1975, Communications of the ACM 18(3), 165-172,
+    https://doi.org/10.1145/360680.360691): two order statistics of a strided sample of 63
+    values, about 2 sample standard deviations either side of its median, bracket the median
+    with high probability; one branch-free pass counts the values below the band and copies the
+    band (about a quarter of the values) to tmp, where quickselect finishes. If the band misses
+    the median (a few % of calls), quickselect runs on all of a. Same value as a sort: an order
+    statistic of the same set. About twice as fast as quickselect on all of a for the ~800 slopes
+    of a 40-step series.
+    """
+    if m <= 2 * _SAMPLE:  # small: plain quickselect (and tmp[s:] below must hold s values)
+        return _median_inplace(a, m, tmp)
+    s = _SAMPLE
+    for i in range(s):  # strided sample; its two order statistics by quickselect
+        tmp[i] = a[(2 * i + 1) * m // (2 * s)]
+    q_lo = s // 2 - _SAMPLE_HALF_WIDTH
+    q_hi = s // 2 + _SAMPLE_HALF_WIDTH
+    _select(tmp, 0, s, q_lo, tmp[s:])
+    _select(tmp, q_lo + 1, s, q_hi, tmp[s:])
+    lo_v = tmp[q_lo]
+    hi_v = tmp[q_hi]
+    k = m // 2
+    k_lo = k if m % 2 == 1 else k - 1
+    below = 0
+    nb = 0
+    for i in range(m):
+        v = a[i]
+        tmp[nb] = v
+        below += v < lo_v
+        nb += (v >= lo_v) & (v <= hi_v)
+    if below > k_lo or below + nb <= k:
+        return _median_inplace(a, m, tmp)
+    # tmp[:nb] holds the band; a is free to serve as scratch
+    kk = k - below
+    _select(tmp, 0, nb, kk, a)
+    hi = tmp[kk]
+    if m % 2 == 1:
+        return hi
+    kl = kk - 1  # >= 0 because below <= k - 1
+    lo = tmp[0]
+    for i in range(1, kl + 1):
+        if tmp[i] > lo:
+            lo = tmp[i]
+    return 0.5 * (lo + hi)
+
+
 @njit(cache=True)
 def _sen_index_slope(x, m, buf, tmp):
     """Median of (x_j - x_i) / (j - i) over i < j < m (series in consecutive steps)."""
     c = 0
     for i in range(m - 1):
         xi = x[i]
+        base = c - i - 1  # no loop-carried counter: the inner loop vectorises
         for j in range(i + 1, m):
-            buf[c] = (x[j] - xi) / (j - i)
-            c += 1
-    return _median_inplace(buf, c, tmp)
+            buf[base + j] = (x[j] - xi) / (j - i)
+        c += m - 1 - i
+    return _median_band(buf, c, tmp)
 
 
 @njit(cache=True)
@@ -213,6 +281,113 @@ def _acf1(x, m):
     if c0 == 0.0:
         return 0.0  # a constant series carries no autocorrelation to remove
     return c1 / c0
+
+
+@njit(cache=True)
+def _acf1_sd(x, m):
+    """(lag-1 autocorrelation as :func:`_acf1`, biased standard deviation) of x[:m]."""
+    mean = 0.0
+    for i in range(m):
+        mean += x[i]
+    mean /= m
+    c0 = 0.0
+    c1 = 0.0
+    for i in range(m):
+        d = x[i] - mean
+        c0 += d * d
+        if i + 1 < m:
+            c1 += d * (x[i + 1] - mean)
+    if c0 == 0.0:
+        return 0.0, 0.0
+    return c1 / c0, math.sqrt(c0 / m)
+
+
+@njit(cache=True)
+def _iterative_prewhiten(x, m, w, d, buf, tmp):
+    """Iterative pre-whitening of x[:m] (Zhang et al. 2000; Wang & Swail 2001).
+
+    Starting from the Sen slope b of x (against the step index), repeat: remove the trend,
+    d_t = x_t - b t; lag-1 autocorrelation r of d, bias-corrected rho = (m r + 1) / (m - 4)
+    (inverting E[r] ~ rho - (1 + 4 rho) / m); if rho < IPW_MIN_R the series is taken as
+    independent (rho = 0, b = Sen slope of x), else rho is capped at IPW_MAX_R and
+    w_t = (x_{t+1} - rho x_t) / (1 - rho), t < m - 1, and b = Sen slope of w; until rho and b
+    converge (IPW_TOL) or IPW_MAX_ITER rounds. A detrended series without variance has
+    rho = 0; series of fewer than 5 values are never whitened (the bias correction needs m > 4).
+
+    Returns (rho, b, iterations); w[:m-1] holds the whitened series when rho > 0.
+    """
+    b0 = _sen_index_slope(x, m, buf, tmp)
+    if m < 5:
+        return 0.0, b0, 0
+    b = b0
+    rho = -1.0  # no previous value
+    it = 0
+    while it < IPW_MAX_ITER:
+        it += 1
+        for k in range(m):
+            d[k] = x[k] - b * k
+        r, sd = _acf1_sd(d, m)
+        new_rho = 0.0
+        if sd > 0.0:
+            new_rho = (m * r + 1.0) / (m - 4.0)
+            if new_rho < IPW_MIN_R:
+                new_rho = 0.0
+            elif new_rho > IPW_MAX_R:
+                new_rho = IPW_MAX_R
+        if new_rho == 0.0:
+            new_b = b0
+        else:
+            scale = 1.0 / (1.0 - new_rho)
+            for k in range(m - 1):
+                w[k] = (x[k + 1] - new_rho * x[k]) * scale
+            new_b = _sen_index_slope(w, m - 1, buf, tmp)
+        db = abs(new_b - b)
+        dr = abs(new_rho - rho)
+        done = ((dr <= IPW_TOL * abs(rho) or dr <= IPW_TOL_R_ABS)
+                and (db <= IPW_TOL * abs(b) or db * (m - 1) <= IPW_TOL_B_ABS * sd))
+        rho = new_rho
+        b = new_b
+        if done:
+            break
+    # every round with rho > 0 rewrote w, so w holds the series whitened with the final rho
+    return rho, b, it
+
+
+@njit(cache=True, parallel=True)
+def iterative_prewhiten_batch(y, n_chunks, series_out, rho_out, slope_out, iter_out):
+    """Per series: the values the iterative pre-whitening test runs on (compacted to the front,
+    NaN after), rho, Sen slope per step and the number of rounds (NaN / 0 below 3 values)."""
+    ns, nt = y.shape
+    for c in prange(n_chunks):
+        x = np.empty(nt)
+        w = np.empty(nt)
+        d = np.empty(nt)
+        buf = np.empty(max(1, nt * (nt - 1) // 2))
+        tmp = np.empty(max(1, nt * (nt - 1) // 2))
+        for r in range(c * ns // n_chunks, (c + 1) * ns // n_chunks):
+            m = 0
+            for k in range(nt):
+                v = y[r, k]
+                if not math.isnan(v):
+                    x[m] = v
+                    m += 1
+            for k in range(nt):
+                series_out[r, k] = np.nan
+            if m < 3:
+                rho_out[r] = np.nan
+                slope_out[r] = np.nan
+                iter_out[r] = 0
+                continue
+            rho, b, it = _iterative_prewhiten(x, m, w, d, buf, tmp)
+            rho_out[r] = rho
+            slope_out[r] = b
+            iter_out[r] = it
+            if rho > 0.0:
+                for k in range(m - 1):
+                    series_out[r, k] = w[k]
+            else:
+                for k in range(m):
+                    series_out[r, k] = x[k]
 
 
 @njit(cache=True)
@@ -347,9 +522,16 @@ def _mann_kendall_one(r, y, tg, use_tg, correction, exact_cdf, x, g, w, sbuf, bu
         ser = w
         mm = m - 1
         ut = False
+    elif correction == ITERATIVE_PREWHITEN:
+        rho, _, _ = _iterative_prewhiten(x, m, w, sbuf, buf, tmp)
+        if rho > 0.0:
+            ser = w
+            mm = m - 1
+            ut = False
 
     tol = 0.0
-    if correction == PREWHITEN or correction == TREND_FREE_PREWHITEN:
+    if correction == PREWHITEN or correction == TREND_FREE_PREWHITEN or (
+            correction == ITERATIVE_PREWHITEN and mm < m):
         # whitened values that are equal in exact arithmetic can differ by rounding; count
         # differences below 1e-10 of the largest magnitude as ties
         big = 0.0
