@@ -14,7 +14,8 @@ import pytest
 import scipy.stats
 import xarray as xr
 
-from unmix.cube.trends import SeasonScheme, decimal_year, season_labels, trend_cube
+from unmix.cube.trends import SeasonScheme, season_labels, trend_cube
+from unmix.dates import decimal_years as decimal_year
 from unmix.errors import InputError, ShapeError, UnknownNameError
 from unmix.trajectory import Trajectory, classify_trajectories, parse_rules
 

@@ -53,6 +53,7 @@ import xarray as xr
 
 from .. import __version__
 from ..errors import InputError, ShapeError
+from ..dates import decimal_years
 from ..trajectory import (
     FLAG_MEANINGS,
     FLAG_VALUES,
@@ -67,7 +68,7 @@ from ..trajectory import (
 )
 from ..trend import DEFAULT_CORRECTION, MannKendallCorrection, fdr
 
-__all__ = ["SeasonScheme", "trend_cube", "decimal_year", "season_labels", "TREND_VARIABLES"]
+__all__ = ["SeasonScheme", "trend_cube", "season_labels", "TREND_VARIABLES"]
 
 
 class SeasonScheme(str, enum.Enum):
@@ -102,37 +103,6 @@ TREND_VARIABLES = (
     "step",
     "n_valid",
 )
-
-
-def decimal_year(times) -> np.ndarray:
-    """Dates as decimal years: year + elapsed share of that calendar year.
-
-    Parameters
-    ----------
-    times : (time,) datetime64 array_like
-
-    Returns
-    -------
-    (time,) float64 ndarray [yr]
-
-    Examples
-    --------
-    >>> decimal_year(np.array(["2020-01-01", "2020-07-02", "2021-01-01"], dtype="datetime64[D]")).tolist()
-    [2020.0, 2020.5, 2021.0]
-    """
-    t = np.asarray(times)
-    if not np.issubdtype(t.dtype, np.datetime64):
-        raise InputError(
-            f"time must hold real dates (datetime64), got dtype {t.dtype}; open the product with decoded times"
-        )
-    t = t.astype("datetime64[ns]")
-    if np.isnat(t).any():
-        raise InputError("time holds a missing date (NaT); drop that time step or give it its date")
-    year = t.astype("datetime64[Y]")
-    start = year.astype("datetime64[ns]")
-    end = (year + 1).astype("datetime64[ns]")
-    frac = (t - start).astype(np.float64) / (end - start).astype(np.float64)
-    return year.astype(np.int64) + 1970 + frac
 
 
 def season_labels(times, scheme) -> np.ndarray | None:
@@ -259,7 +229,7 @@ def _fractions_of(fractions_ds) -> xr.DataArray:
     return fr.transpose(*need)
 
 
-def _pixel_area_m2(ds) -> tuple[float, str]:
+def pixel_area_m2(ds) -> tuple[float, str]:  # also used by the report tables
     """Pixel area [m^2] from the grid mapping / transform / x-y spacing, and a note on how it was found."""
     wkt = None
     transform = None
@@ -376,7 +346,7 @@ def trend_cube(
     times = fr["time"].values.astype("datetime64[ns]")
     if np.any(np.diff(times) <= np.timedelta64(0, "ns")):
         raise InputError("the dates of the fractions product are not strictly increasing; sort by time and drop duplicates")
-    t = decimal_year(times)
+    t = decimal_years(times)
     season = season_labels(times, scheme)
     endmembers = [str(v) for v in fr["endmember"].values]
     rules = list(rules or [])
@@ -526,7 +496,7 @@ def _add_rules(result: xr.Dataset, rules: list[Rule], endmembers: list[str], laz
     codes = result["trajectory"]
     if lazy:
         codes = codes.chunk({"endmember": -1})
-    area_m2, area_note = _pixel_area_m2(result)
+    area_m2, area_note = pixel_area_m2(result)
     counts, valids = [], []
     for rule in rules:
         mask = xr.apply_ufunc(
