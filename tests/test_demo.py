@@ -1,0 +1,63 @@
+"""The bundled demo end to end: the invented scene is recovered, and the run behaves like a command."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from unmix.cli.main import main
+from unmix.demo.run import run_demo
+from unmix.demo.scenario import ENDMEMBERS, make_scenario
+
+
+def test_scenario_is_a_valid_mixture():
+    spectra = np.random.default_rng(1).uniform(0.0, 0.5, (len(ENDMEMBERS), 6))
+    s = make_scenario(spectra, size=64, n_time=20)
+    # Fractions of a linear mixture are a partition of the pixel (Keshava & Mustard 2002).
+    np.testing.assert_allclose(s.fractions.sum(axis=1), 1.0, atol=1e-12)
+    assert s.fractions.min() >= 0.0
+    assert np.isnan(s.reflectance).any() and np.isfinite(s.reflectance).mean() > 0.9
+
+
+def test_pivot_disc_area_matches_the_rule_of_thumb():
+    # CHECKS.md (common practice): a 1 km disc is about 78.5 ha, about 873 pixels of 30 m.
+    s = make_scenario(np.full((len(ENDMEMBERS), 6), 0.2), size=160, n_time=10)
+    assert s.pivot_disc_ha == pytest.approx(np.pi * 500.0**2 / 1e4, rel=0.01)
+
+
+@pytest.fixture(scope="module")
+def demo_result(tmp_path_factory):
+    out = tmp_path_factory.mktemp("demo")
+    return run_demo(out, size=96, n_time=32, echo=lambda *_: None)
+
+
+def test_demo_recovers_fractions(demo_result):
+    # Truth is the invented scene itself; noise sd 0.004 reflectance on 6 bands. A bound of 0.05 mean
+    # absolute error is a common acceptance level for fraction maps (common practice, not a standard).
+    assert (demo_result.errors["mae"] < 0.05).all(), demo_result.errors
+
+
+def test_demo_recovers_trajectories(demo_result):
+    hits = demo_result.hits.set_index(["zone", "endmember"])["hit_pct"]
+    assert hits.min() >= 80.0, demo_result.hits
+    assert hits[("pivot", "green_vegetation")] >= 95.0
+
+
+def test_demo_clearing_rule_area_is_the_disc(demo_result):
+    areas = demo_result.rule_areas.set_index("rule")["area_ha"]
+    assert areas["clearing"] == pytest.approx(demo_result.pivot_disc_ha, rel=0.05)
+
+
+def test_demo_report_carries_the_caution(demo_result):
+    text = demo_result.report.read_text(encoding="utf-8")
+    assert "Validate them with field observations" in text
+    assert "invented" in text
+
+
+def test_demo_refuses_to_overwrite(demo_result, capsys):
+    before = (demo_result.out / "fractions.nc").stat().st_mtime_ns
+    code = main(["demo", "--out", str(demo_result.out), "--size", "40", "--dates", "12"])
+    assert code == 2
+    err = capsys.readouterr().err
+    assert "--overwrite" in err and "Traceback" not in err
+    assert (demo_result.out / "fractions.nc").stat().st_mtime_ns == before

@@ -1,0 +1,67 @@
+"""Scoring what the tool recovered on the invented scenario against its known truth."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from .scenario import ENDMEMBERS, ZONES, Scenario
+
+__all__ = ["EXPECTED", "fraction_errors", "trajectory_hits"]
+
+#: Trajectory each zone should show, per endmember (what the invented story built into it).
+#: Pixels where the designed change is too weak to detect are left out (see ``_strong``).
+EXPECTED = {
+    ("stable", "green_vegetation"): "stable",
+    ("stable", "sand"): "stable",
+    ("grazing", "green_vegetation"): "gradual_decrease",
+    ("grazing", "sand"): "gradual_increase",
+    ("dune", "green_vegetation"): "gradual_decrease",
+    ("dune", "sand"): "gradual_increase",
+    ("pivot", "green_vegetation"): "abrupt_decrease",
+    ("pivot", "sand"): "abrupt_increase",
+    ("recovery", "green_vegetation"): "gradual_increase",
+    ("recovery", "sand"): "gradual_decrease",
+}
+
+
+def fraction_errors(scenario: Scenario, fractions: xr.Dataset) -> pd.DataFrame:
+    """Mean absolute error and bias of recovered fractions against the truth, per endmember."""
+    rows = []
+    for k, name in enumerate(ENDMEMBERS):
+        est = np.asarray(fractions["fractions"].sel(endmember=name).values, dtype=float)
+        truth = scenario.fractions[:, k]
+        ok = np.isfinite(est)
+        err = est[ok] - truth[ok]
+        rows.append({"endmember": name, "mae": float(np.mean(np.abs(err))), "bias": float(np.mean(err)),
+                     "pixel_dates": int(ok.sum())})
+    return pd.DataFrame(rows)
+
+
+def _strong(scenario: Scenario) -> np.ndarray:
+    """Pixels whose designed change is large enough to be called (piosphere core, whole other zones)."""
+    t = np.arange(scenario.fractions.shape[0])
+    gv = scenario.fractions[:, 0]
+    # Net change over the record of the noise-free green fraction, from a least-squares line.
+    slope_per_step = np.tensordot(t - t.mean(), gv - gv.mean(0), axes=(0, 0)) / np.sum((t - t.mean()) ** 2)
+    total = np.abs(slope_per_step) * (t.size - 1)
+    zone = scenario.zone
+    return (zone != ZONES.index("grazing")) | (total >= 0.08)
+
+
+def trajectory_hits(scenario: Scenario, trends: xr.Dataset) -> pd.DataFrame:
+    """Share of each zone's pixels given the expected trajectory label, per endmember."""
+    traj = trends["trajectory"]
+    meanings = str(traj.attrs["flag_meanings"]).split()
+    values = np.atleast_1d(traj.attrs["flag_values"]).astype(int)
+    code_of = dict(zip(meanings, values.tolist()))
+    strong = _strong(scenario)
+    rows = []
+    for (zone_name, endmember), label in EXPECTED.items():
+        mask = (scenario.zone == ZONES.index(zone_name)) & strong
+        codes = np.asarray(traj.sel(endmember=endmember).values)[mask]
+        hits = int(np.count_nonzero(codes == code_of[label]))
+        rows.append({"zone": zone_name, "endmember": endmember, "expected": label, "pixels": int(mask.sum()),
+                     "hit_pct": 100.0 * hits / mask.sum() if mask.sum() else np.nan})
+    return pd.DataFrame(rows)
