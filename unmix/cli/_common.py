@@ -11,9 +11,22 @@ from pathlib import Path
 
 import click
 
-from ..errors import OutputExistsError
+from ..errors import InputError, OutputExistsError
+from ..sensors import list_sensors
 
-__all__ = ["overwrite_option", "out_dir_option", "check_can_write", "echo_summary"]
+__all__ = ["SENSOR_HELP", "overwrite_option", "out_dir_option", "check_can_write", "echo_summary", "split_names"]
+
+SENSOR_HELP = "Built-in sensor id: " + ", ".join(list_sensors()) + " (see `unmix sensors`)."
+
+
+def split_names(text: str | None, option: str = "--band-names") -> list[str] | None:
+    """Comma-separated names of an option (``B2,B3,B4``) as a list; None when the option was not given."""
+    if text is None:
+        return None
+    names = [t.strip() for t in text.split(",") if t.strip()]
+    if not names:
+        raise InputError(f"{option} is empty; give names separated by commas, e.g. B2,B3,B4")
+    return names
 
 overwrite_option = click.option(
     "--overwrite",

@@ -13,22 +13,11 @@ from ..extraction import CountMethod, ExtractionMethod, estimate_count, extract,
 from ..io.library import read_library, sidecar_path, write_library
 from ..io.stack import open_stack
 from ..pruning import PruningMethod, prune
-from ..sensors import get_sensor, list_sensors
+from ..sensors import get_sensor
 from ..spectra import SpectralLibrary, resample
-from ._common import check_can_write, echo_summary, overwrite_option
+from ._common import SENSOR_HELP, check_can_write, echo_summary, overwrite_option, split_names
 
 __all__ = ["endmembers"]
-
-_SENSOR_HELP = "Built-in sensor id: " + ", ".join(list_sensors()) + " (see `unmix sensors`)."
-
-
-def _band_list(text: str | None) -> list[str] | None:
-    if text is None:
-        return None
-    names = [t.strip() for t in text.split(",") if t.strip()]
-    if not names:
-        raise InputError("--band-names is empty; give names separated by commas, e.g. B2,B3,B4")
-    return names
 
 
 def _check_out(out: Path, overwrite: bool) -> None:
@@ -86,7 +75,7 @@ def endmembers() -> None:
 
 @endmembers.command("extract")
 @click.argument("stack", nargs=-1, required=True, type=click.Path(path_type=Path))
-@click.option("--sensor", "sensor_id", required=True, metavar="ID", help=_SENSOR_HELP)
+@click.option("--sensor", "sensor_id", required=True, metavar="ID", help=SENSOR_HELP)
 @click.option("--band-names", default=None, metavar="B1,B2,...",
               help="Names of the bands the files hold, in file order, separated by commas "
                    "(default: the files' band descriptions or the sensor's bands).")
@@ -142,7 +131,7 @@ def extract_command(
     reference = read_library(library_path) if library_path is not None else None
 
     source = stack[0] if len(stack) == 1 else list(stack)
-    cube = open_stack(source, sensor=sensor, band_names=_band_list(band_names))
+    cube = open_stack(source, sensor=sensor, band_names=split_names(band_names))
     bands = [str(b) for b in cube["band"].values]
     wavelengths = np.array([sensor.band(b).centre_nm for b in bands])
     ref = _library_on_bands(reference, sensor.id, bands, library_path) if reference is not None else None

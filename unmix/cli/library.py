@@ -10,22 +10,11 @@ import numpy as np
 
 from ..errors import InputError
 from ..io.library import read_library, read_response_sensor, sidecar_path, write_library
-from ..sensors import get_sensor, list_sensors
+from ..sensors import get_sensor
 from ..spectra import ndvi, resample
-from ._common import check_can_write, echo_summary, overwrite_option
+from ._common import SENSOR_HELP, check_can_write, echo_summary, overwrite_option, split_names
 
 __all__ = ["library"]
-
-_SENSOR_HELP = "Built-in sensor id: " + ", ".join(list_sensors()) + " (see `unmix sensors`)."
-
-
-def _band_list(text: str | None) -> list[str] | None:
-    if text is None:
-        return None
-    names = [t.strip() for t in text.split(",") if t.strip()]
-    if not names:
-        raise InputError("--band-names is empty; give names separated by commas, e.g. B2,B3,B4")
-    return names
 
 
 @click.group("library")
@@ -41,7 +30,7 @@ def library() -> None:
 @library.command("show")
 @click.argument("file", type=click.Path(path_type=Path))
 @click.option("--sensor", "sensor_id", default=None, metavar="ID",
-              help="Sensor for NDVI of a full-resolution library (resampled on the fly). " + _SENSOR_HELP)
+              help="Sensor for NDVI of a full-resolution library (resampled on the fly). " + SENSOR_HELP)
 @click.option("--red", default=None, metavar="BAND", help="Red band name for NDVI (default: the sensor's).")
 @click.option("--nir", default=None, metavar="BAND", help="Near-infrared band name for NDVI (default: the sensor's).")
 def show(file: Path, sensor_id: str | None, red: str | None, nir: str | None) -> None:
@@ -103,7 +92,7 @@ def show(file: Path, sensor_id: str | None, red: str | None, nir: str | None) ->
 
 @library.command("resample")
 @click.argument("file", type=click.Path(path_type=Path))
-@click.option("--sensor", "sensor_id", default=None, metavar="ID", help=_SENSOR_HELP)
+@click.option("--sensor", "sensor_id", default=None, metavar="ID", help=SENSOR_HELP)
 @click.option("--response", "response_file", default=None, type=click.Path(path_type=Path),
               help="Instead of --sensor: a CSV of tabulated band responses (wavelength_nm, one column per band, 0..1).")
 @click.option("--band-names", default=None, metavar="B2,B3,...",
@@ -132,7 +121,7 @@ def resample_cmd(file: Path, sensor_id: str | None, response_file: Path | None, 
     check_can_write(sidecar_path(out), overwrite)
     sensor = get_sensor(sensor_id) if sensor_id is not None else read_response_sensor(response_file)
     lib = read_library(file)
-    res = resample(lib, sensor, _band_list(band_names))
+    res = resample(lib, sensor, split_names(band_names))
     res = res.with_metadata(resampled_from=str(file))
     write_library(res, out, overwrite=overwrite)
     echo_summary(f"wrote {out}: {len(res)} spectra x {len(res.band_names)} bands of {sensor.id} "

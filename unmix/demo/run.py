@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from ..errors import OutputExistsError, UnmixError
+from ..errors import OutputExistsError
 from ..io.library import read_library, shipped_library_path
 from ..io.products import open_product, write_netcdf
 from ..io.report import report_paths, write_report
