@@ -25,6 +25,18 @@ def cli() -> None:
 
 
 # Subcommands register here, one line each (keep alphabetical).
+from .demo import demo as _demo_command  # noqa: E402
+cli.add_command(_demo_command)
+from .endmembers import endmembers as _endmembers_command  # noqa: E402
+cli.add_command(_endmembers_command)
+from .fractions import fractions as _fractions_command  # noqa: E402
+cli.add_command(_fractions_command)
+from .library import library as _library_command  # noqa: E402
+cli.add_command(_library_command)
+from .sensors import sensors as _sensors_command  # noqa: E402
+cli.add_command(_sensors_command)
+from .trends import trends as _trends_command  # noqa: E402
+cli.add_command(_trends_command)
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -1,0 +1,122 @@
+"""Tests of unmix.cube.fractions.unmix_cube over lazy cubes.
+
+References outside the lazy pipeline: the fractions the fixture mixed the pixels with (conftest.py),
+numpy's least squares (``np.linalg.lstsq``) for the unconstrained model, the eager kernel on plain
+arrays, and a dask.distributed LocalCluster run against the threaded scheduler.
+"""
+
+from __future__ import annotations
+
+import dask
+import numpy as np
+import pytest
+import xarray as xr
+
+from unmix.cube import unmix_cube
+from unmix.errors import BandMismatchError, RankError
+from unmix.io.stack import open_stack
+from unmix.solvers import estimate_fractions
+
+from conftest import BANDS
+
+
+@pytest.fixture
+def stack(make_stack):
+    info = make_stack()
+    cube = open_stack(info.folder, band_names=BANDS, scale=1e-4, chunks=16)
+    return info, cube
+
+
+def test_lazy_until_computed_and_equal_to_eager_kernel(stack):
+    info, cube = stack
+    ds = unmix_cube(cube, info.endmembers, names=info.names)
+    for name in ("fractions", "rmse", "valid_count"):
+        assert dask.is_dask_collection(ds[name]), name
+    assert ds["fractions"].dims == ("time", "endmember", "y", "x")
+    assert ds["fractions"].chunks[0] == (1,) * len(info.dates)
+    assert ds["fractions"].dtype == np.float32 and ds["rmse"].dtype == np.float32
+    # eager: the kernel on the whole in-memory array, band last
+    eager_f, eager_r = estimate_fractions(np.moveaxis(info.reflectance, 1, -1), info.endmembers)
+    np.testing.assert_array_equal(ds["fractions"].values, np.moveaxis(eager_f, -1, 1))
+    np.testing.assert_array_equal(ds["rmse"].values, eager_r)
+
+
+def test_recovers_mixing_fractions_and_marks_nodata(stack):
+    info, cube = stack
+    ds = unmix_cube(cube, info.endmembers, names=info.names).compute()
+    f = ds["fractions"].values
+    nodata = info.nodata_mask  # (t, y, x), pixels with a nodata band, set by the fixture
+    assert np.isnan(f[np.broadcast_to(nodata[:, None], f.shape)]).all()
+    assert np.isnan(ds["rmse"].values[nodata]).all()
+    ok = np.broadcast_to(~nodata[:, None], f.shape)
+    # truth: the Dirichlet fractions the fixture mixed with; int16 storage (1e-4 quantum) limits agreement
+    np.testing.assert_allclose(f[ok], info.fractions[ok], atol=3e-3)
+    np.testing.assert_allclose(f.sum(axis=1)[~nodata], 1.0, atol=1e-5)  # FCLS: sum to one
+    assert (f[ok] >= -1e-7).all()
+    # valid_count: dates without a nodata band, counted with numpy
+    np.testing.assert_array_equal(ds["valid_count"].values, (~nodata).sum(axis=0))
+    assert ds["valid_count"].dtype == np.int32
+
+
+def test_unconstrained_matches_numpy_lstsq(stack):
+    info, cube = stack
+    sub = cube.isel(time=[2], y=slice(0, 6), x=slice(0, 5))
+    ds = unmix_cube(sub, info.endmembers, names=info.names, constraint="none")
+    x = np.moveaxis(sub.values[0], 0, -1).reshape(-1, len(BANDS)).astype(np.float64)
+    ref, *_ = np.linalg.lstsq(info.endmembers.T, x.T, rcond=None)  # numpy reference, per pixel column
+    got = np.moveaxis(ds["fractions"].values[0], 0, -1).reshape(-1, len(info.names))
+    np.testing.assert_allclose(got, ref.T, atol=2e-5)
+
+
+def test_int16_with_nodata_equals_float_input(make_stack):
+    ints = make_stack(storage="int16", folder="ints")
+    floats = make_stack(storage="float32", folder="floats")
+    a = unmix_cube(open_stack(ints.folder, band_names=BANDS, scale=1e-4), ints.endmembers, names=ints.names)
+    b = unmix_cube(open_stack(floats.folder, band_names=BANDS), floats.endmembers, names=floats.names)
+    fa, fb = a["fractions"].values, b["fractions"].values
+    np.testing.assert_array_equal(np.isnan(fa), np.isnan(fb))
+    # int16 rounding moves reflectance by <= 5e-5, which moves fractions by well under 3e-3
+    np.testing.assert_allclose(fa, fb, atol=3e-3)
+
+
+def test_local_cluster_equals_threaded_bit_for_bit(stack):
+    import distributed
+
+    info, cube = stack
+    ds = unmix_cube(cube, info.endmembers, names=info.names)
+    threaded = ds["fractions"].data.compute(scheduler="threads")
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False,
+                                  dashboard_address=":0") as cluster, distributed.Client(cluster) as client:
+        clustered = client.compute(ds["fractions"].data).result()
+    np.testing.assert_array_equal(clustered, threaded)
+
+
+def test_attributes_and_spectra(stack):
+    info, cube = stack
+    ds = unmix_cube(cube, info.endmembers, names=info.names, constraint="fcls")
+    assert ds.attrs["constraint"] == "fcls"
+    assert ds.attrs["endmember_names"] == ", ".join(info.names)
+    assert list(ds["endmember"].values) == list(info.names)
+    np.testing.assert_allclose(ds["endmember_spectra"].values, info.endmembers, rtol=1e-6)
+    assert list(ds["endmember_spectra"]["band"].values) == list(BANDS)
+    assert ds["fractions"].attrs["units"] == "1" and "long_name" in ds["rmse"].attrs
+    assert ds["fractions"].attrs["crs_wkt"] == cube.attrs["crs_wkt"]
+
+
+def test_endmembers_as_dataarray_are_matched_by_band_name(stack):
+    info, cube = stack
+    shuffled = list(reversed(BANDS))
+    em = xr.DataArray(info.endmembers[:, ::-1], dims=("endmember", "band"), coords={"band": shuffled})
+    a = unmix_cube(cube, em, names=info.names)["fractions"].values
+    b = unmix_cube(cube, info.endmembers, names=info.names)["fractions"].values
+    np.testing.assert_array_equal(a, b)
+
+
+def test_rank_and_band_errors_are_raised_before_computing(stack):
+    info, cube = stack
+    rng = np.random.default_rng(0)
+    too_many = rng.uniform(0.05, 0.6, size=(8, len(BANDS)))  # 8 > 6 bands + 1 (sum-to-one row)
+    with pytest.raises(RankError):
+        unmix_cube(cube, too_many, names=[f"e{i}" for i in range(8)])
+    with pytest.raises(BandMismatchError):
+        unmix_cube(cube, info.endmembers[:, :5], names=info.names)

@@ -1,0 +1,225 @@
+"""``unmix fractions``: endmember fractions of every pixel and date of an image stack.
+
+Reads the stack lazily, unmixes it chunk by chunk with the library's endmembers (resampled to the
+stack's bands) and writes ``OUT/fractions.nc`` (CF-NetCDF: ``fractions``, ``rmse``, ``valid_count``),
+optionally with one Cloud-Optimized GeoTIFF per endmember.
+"""
+
+from __future__ import annotations
+
+import shlex
+import time
+from pathlib import Path
+from typing import Any
+
+import click
+import numpy as np
+
+from ..errors import BandMismatchError, InputError
+from ..io.stack import Resampling
+from ..solvers import Constraint
+from ._common import check_can_write, echo_summary, out_dir_option, overwrite_option
+from ._scheduler import dask_scheduler, scheduler_options
+
+__all__ = ["fractions", "endmember_matrix"]
+
+
+def _split_list(text: str | None, what: str) -> list[str] | None:
+    if text is None:
+        return None
+    items = [t.strip() for t in text.split(",") if t.strip()]
+    if not items:
+        raise InputError(f"{what} is empty; give comma-separated names, e.g. B2,B3,B4")
+    return items
+
+
+def _int_list(text: str | None, what: str) -> tuple[int, ...]:
+    if not text:
+        return ()
+    try:
+        return tuple(int(t) for t in text.split(",") if t.strip())
+    except ValueError:
+        raise InputError(f"{what} must be comma-separated whole numbers (bit positions), got {text!r}") from None
+
+
+def endmember_matrix(library: Any, sensor: Any, band_names: list[str], library_path: Any = None) -> np.ndarray:
+    """Endmember spectra (endmember, band) in the stack's band order.
+
+    A library already resampled to sensor bands (``band_names`` set) is used as it is, its bands
+    picked by name; a full-resolution library is resampled to ``sensor`` with
+    :func:`unmix.spectra.resample`.
+    """
+    where = f"library {library_path}" if library_path else "the library"
+    if library.band_names is not None:
+        lib_sensor = library.metadata.get("sensor")
+        if lib_sensor and str(lib_sensor) != str(sensor.id):
+            raise BandMismatchError(
+                f"{where} is resampled to {lib_sensor} bands but --sensor is {sensor.id}; use a library resampled "
+                f"to {sensor.id} or the full-resolution library"
+            )
+        missing = [b for b in band_names if b not in library.band_names]
+        if missing:
+            raise BandMismatchError(
+                f"{where} has no band {', '.join(missing)} (it has {', '.join(library.band_names)}); resample the "
+                "full-resolution library to the stack's bands or fix --band-names"
+            )
+        idx = [library.band_names.index(b) for b in band_names]
+        return np.asarray(library.spectra, dtype=np.float64)[:, idx]
+    from ..spectra import resample
+
+    return np.asarray(resample(library, sensor, band_names).spectra, dtype=np.float64)
+
+
+def _command_line(ctx: click.Context) -> str:
+    """The command as an analyst would retype it (from the parsed options, defaults left out)."""
+    parts = ["unmix", ctx.info_name or "fractions", str(ctx.params["stack"])]
+    for param in ctx.command.params:
+        if param.name == "stack":
+            continue
+        value = ctx.params.get(param.name)
+        if value is None or value is False or value == param.default:
+            continue
+        flag = max(param.opts, key=len)
+        parts.append(flag if value is True else f"{flag} {value}")
+    return " ".join(shlex.quote(p) if " " in p and not p.startswith("--") else p for p in parts)
+
+
+@click.command("fractions")
+@click.argument("stack", type=click.Path(path_type=Path))
+@click.option("--library", "library", required=True, type=click.Path(path_type=Path),
+              help="Spectral library CSV holding the endmember spectra (full resolution, or already resampled "
+                   "to the sensor's bands).")
+@click.option("--sensor", required=True, metavar="ID",
+              help="Sensor of the stack, e.g. landsat-8-oli or sentinel-2a-msi (`unmix sensors` lists them).")
+@click.option("--band-names", "band_names", default=None, metavar="B2,B3,...",
+              help="Sensor band names of the files' bands, in file order. Default: the band descriptions of the "
+                   "files if every band has one, else all bands of the sensor.")
+@click.option("--endmembers", "endmember_names", default=None, metavar="NAME,...",
+              help="Library spectra to use as endmembers, comma-separated. Default: all spectra.")
+@click.option("--constraint", type=click.Choice([c.value for c in Constraint]), default=Constraint.FCLS.value,
+              show_default=True,
+              help="Constraint on the fractions: fcls = non-negative and summing to one.")
+@out_dir_option(".")
+@overwrite_option
+@click.option("--align", is_flag=True, default=False,
+              help="Warp dates on another grid (CRS, pixel grid or size) onto the first date's grid instead "
+                   "of stopping.")
+@click.option("--resampling", type=click.Choice([r.value for r in Resampling]),
+              default="nearest", show_default=True, help="Resampling used by --align.")
+@click.option("--dates", "dates", type=click.Path(path_type=Path), default=None, metavar="CSV",
+              help="CSV with columns file,date (YYYY-MM-DD). Default: dates read from the file names "
+                   "(YYYY-MM-DD, YYYYMMDD or YYYYDDD).")
+@click.option("--scale", type=float, default=None,
+              help="Reflectance = stored value x SCALE + OFFSET (e.g. 0.0001 for int16 reflectance). "
+                   "Default: the files' own scale, else 1.")
+@click.option("--offset", type=float, default=None, help="See --scale. Default: the files' own offset, else 0.")
+@click.option("--qa", "qa", default=None, metavar="BAND|PATH",
+              help="Quality mask: a band of the files (number from 1, or its description) or a folder of "
+                   "per-date mask files with the date in their names.")
+@click.option("--qa-bits", "qa_bits", default=None, metavar="1,3,...",
+              help="QA bit positions (0 = least significant) that mark a pixel invalid. Default with --qa: "
+                   "any non-zero QA value.")
+@click.option("--cog", is_flag=True, default=False,
+              help="Also write OUT/fractions_<endmember>.tif, Cloud-Optimized GeoTIFFs with one band per date.")
+@click.option("--compress-level", "compress_level", type=click.IntRange(0, 9), default=1, show_default=True,
+              help="zlib level of the NetCDF product; 0 = uncompressed (fastest, largest).")
+@scheduler_options
+@click.option("--chunk-size", "chunk_size", type=click.IntRange(min=16), default=None, metavar="N",
+              help="Chunk edge [pixels], rounded up to whole file tiles. Default: about 1024, following the "
+                   "files' tiles. Memory grows with its square.")
+@click.pass_context
+def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str, band_names: str | None,
+              endmember_names: str | None, constraint: str, out: Path, overwrite: bool, align: bool,
+              resampling: str, dates: Path | None, scale: float | None, offset: float | None, qa: str | None,
+              qa_bits: str | None, cog: bool, compress_level: int, workers: int | None,
+              scheduler: str | None, chunk_size: int | None) -> None:
+    """Fractions of every endmember in every pixel and date of STACK.
+
+    STACK is a folder of GeoTIFFs (one per date, all bands of that date) or a NetCDF cube
+    (time, band, y, x). Writes OUT/fractions.nc with `fractions` (time, endmember, y, x),
+    `rmse` (time, y, x; model misfit in reflectance) and `valid_count` (dates with a valid
+    fraction per pixel). Fractions are model estimates: check them against field data.
+    """
+    started = time.perf_counter()
+    out = Path(out)
+    nc_path = out / "fractions.nc"
+    check_can_write(nc_path, overwrite)
+
+    from ..io.library import read_library
+    from ..io.products import open_product, provenance_attrs, write_cog, write_netcdf
+    from ..io.stack import open_stack
+    from ..sensors import get_sensor
+    from ..cube.fractions import unmix_cube
+
+    sensor_obj = get_sensor(sensor)
+    bands = _split_list(band_names, "--band-names")
+    wanted = _split_list(endmember_names, "--endmembers")
+    bits = _int_list(qa_bits, "--qa-bits")
+    if qa_bits and qa is None:
+        raise InputError("--qa-bits needs --qa (the QA band or the folder of mask files)")
+
+    lib = read_library(library)
+    if wanted is not None:
+        lib = lib.select(wanted)
+    names = list(lib.names)
+    cog_paths = [out / f"fractions_{n}.tif" for n in names] if cog else []
+    for p in cog_paths:
+        check_can_write(p, overwrite)
+
+    qa_arg: Any = qa
+    if qa is not None and qa.strip().isdigit() and not Path(qa).exists():
+        qa_arg = int(qa)
+    cube = open_stack(
+        stack, sensor=sensor_obj, band_names=bands, dates=dates, scale=scale, offset=offset, qa=qa_arg,
+        qa_bits=bits, align=align, resampling=resampling, chunks=chunk_size,
+    )
+    stack_bands = [str(b) for b in cube["band"].values]
+    M = endmember_matrix(lib, sensor_obj, stack_bands, library)
+    ds = unmix_cube(cube, M, names=names, constraint=constraint)
+
+    command = _command_line(ctx)
+    parameters = {
+        "sensor": sensor_obj.id, "bands": stack_bands, "endmembers": names, "constraint": constraint,
+        "library": str(library), "scale": scale, "offset": offset, "qa": qa, "qa_bits": list(bits),
+        "align": align, "resampling": resampling if align else None, "dates": str(dates) if dates else None,
+        "chunk_size": chunk_size,
+    }
+    input_files = list(cube.attrs.get("input_files", ())) + [str(library)]
+
+    import dask.array as dsa
+
+    rmse = ds["rmse"].data
+    stats: dict[str, Any] = {}
+    with dask_scheduler(workers=workers, scheduler=scheduler) as run:
+
+        def compute(delayed: Any) -> None:
+            _, rmse_sum, rmse_n, valid = run.compute(
+                delayed, dsa.nansum(rmse.astype("float64")), dsa.isfinite(rmse).sum(), ds["valid_count"].data.sum()
+            )
+            stats.update(rmse_sum=float(rmse_sum), rmse_n=int(rmse_n), valid=int(valid))
+
+        write_netcdf(ds, nc_path, overwrite=overwrite, command=command, parameters=parameters,
+                     input_files=input_files, title="unmix endmember fractions", complevel=compress_level,
+                     compute=compute)
+        mode = run.describe()
+
+    if cog_paths:
+        product = open_product(nc_path)
+        tags = provenance_attrs(command=command, parameters=parameters, input_files=input_files,
+                                endmember_names=names, title="unmix endmember fraction")
+        for name, path in zip(names, cog_paths):
+            da_ = product["fractions"].sel(endmember=name)
+            da_.attrs.update(long_name=f"fraction of {name}")
+            write_cog(da_, path, overwrite=overwrite, tags={**tags, "endmember": name})
+        product.close()
+
+    n_t, n_y, n_x = cube.sizes["time"], cube.sizes["y"], cube.sizes["x"]
+    pixels = n_y * n_x
+    mean_rmse = stats["rmse_sum"] / stats["rmse_n"] if stats.get("rmse_n") else float("nan")
+    share = stats["valid"] / (pixels * n_t) if pixels * n_t else float("nan")
+    extra = f" (+{len(cog_paths)} COG)" if cog_paths else ""
+    echo_summary(
+        f"fractions: {pixels} pixels x {n_t} dates x {len(names)} endmembers ({constraint}); "
+        f"mean rmse {mean_rmse:.4f}; valid {100 * share:.1f} % of pixel-dates; "
+        f"-> {nc_path}{extra}; {time.perf_counter() - started:.1f} s on {mode}"
+    )
