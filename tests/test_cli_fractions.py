@@ -238,3 +238,54 @@ def test_more_endmembers_than_bands_can_separate(make_stack, tmp_path, capsys):
     lib.write_text("\n".join(lines) + "\n")
     code, out, err = run(base_args(info, lib, tmp_path / "out"), capsys)
     assert_clean_failure(code, err, tmp_path / "out", "8 endmembers", "6 bands")
+
+
+def _bundle_library(tmp_path):
+    """ENDMEMBERS plus a decoy green member, with class labels in the sidecar (unmix.io.library format)."""
+    from conftest import BAND_CENTRES_NM
+
+    spectra = dict(ENDMEMBERS)
+    spectra["green_vegetation_decoy"] = (0.07, 0.11, 0.09, 0.30, 0.31, 0.22)
+    classes = {"green_vegetation": "green_vegetation", "green_vegetation_decoy": "green_vegetation",
+               "bright_soil": "soil", "shade": "shade"}
+    lines = [",".join(["wavelength_nm", "band", *spectra])]
+    for b, (band, centre) in enumerate(zip(BANDS, BAND_CENTRES_NM)):
+        lines.append(",".join([f"{centre}", band, *(f"{v[b]}" for v in spectra.values())]))
+    path = tmp_path / "bundles.csv"
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    import json
+
+    (tmp_path / "bundles.json").write_text(json.dumps(
+        {"sensor": "landsat-8-oli", "spectra": {n: {"class": c} for n, c in classes.items()}}), encoding="utf-8")
+    return path
+
+
+def test_mesma_uses_class_bundles_and_writes_members(make_stack, tmp_path, capsys):
+    import json
+
+    info = make_stack()
+    library = _bundle_library(tmp_path)
+    code, out, err = run([*base_args(info, library, tmp_path / "out"), "--mesma"], capsys)
+    assert code == 0, err
+    assert "MESMA" in out
+    product = open_product(tmp_path / "out" / "fractions.nc")
+    assert list(product["endmember"].values) == ["green_vegetation", "soil", "shade"]
+    members = product["members"].sel({"class": "green_vegetation"}).values
+    names = json.loads(product["members"].attrs["member_names"])
+    assert names["green_vegetation"] == ["green_vegetation", "green_vegetation_decoy"]
+    # Pixels mixed from all three true spectra with at least 20 % each: MESMA (Roberts et al. 1998) must
+    # pick the true green member, not the decoy, and recover the mixing fractions of the fixture.
+    truth = info.fractions  # (time, endmember, y, x) in ENDMEMBERS order: green, soil, shade
+    strong = (truth >= 0.2).all(axis=1) & ~info.nodata_mask
+    assert strong.sum() > 20
+    assert (members[strong] == 0).all()
+    f = product["fractions"].values
+    np.testing.assert_allclose(np.moveaxis(f, 1, -1)[strong], np.moveaxis(truth, 1, -1)[strong], atol=5e-3)
+
+
+def test_mesma_refuses_an_unbounded_constraint(make_stack, tmp_path, capsys):
+    info = make_stack()
+    library = _bundle_library(tmp_path)
+    out_dir = tmp_path / "out"
+    code, out, err = run([*base_args(info, library, out_dir), "--mesma", "--constraint", "none"], capsys)
+    assert_clean_failure(code, err, out_dir, "--mesma", "fcls")

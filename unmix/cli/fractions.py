@@ -7,6 +7,8 @@ optionally with one Cloud-Optimized GeoTIFF per endmember.
 
 from __future__ import annotations
 
+import json
+
 import shlex
 import time
 from pathlib import Path
@@ -70,6 +72,25 @@ def endmember_matrix(library: Any, sensor: Any, band_names: list[str], library_p
     return np.asarray(resample(library, sensor, band_names).spectra, dtype=np.float64)
 
 
+def mesma_bundles(library: Any, M: np.ndarray) -> tuple[dict[str, np.ndarray], np.ndarray | None, dict[str, list[str]]]:
+    """Bundles for MESMA from a library's class labels (a spectrum without a label is its own class).
+
+    Returns the bundles (class -> (members, band) spectra in the stack's band order), the shade
+    spectrum (the first spectrum of class ``shade``; None when the library has none) and the member
+    names of each class.
+    """
+    groups: dict[str, list[int]] = {}
+    for i, (cls, name) in enumerate(zip(library.classes, library.names)):
+        groups.setdefault(cls or name, []).append(i)
+    shade_rows = groups.pop("shade", None)
+    if not groups:
+        raise InputError("--mesma needs at least one class besides shade; label the library's spectra with "
+                         "classes in its JSON sidecar")
+    bundles = {cls: M[rows] for cls, rows in groups.items()}
+    members = {cls: [library.names[i] for i in rows] for cls, rows in groups.items()}
+    return bundles, (M[shade_rows[0]] if shade_rows else None), members
+
+
 def _command_line(ctx: click.Context) -> str:
     """The command as an analyst would retype it (from the parsed options, defaults left out)."""
     parts = ["unmix", ctx.info_name or "fractions", str(ctx.params["stack"])]
@@ -119,6 +140,13 @@ def _command_line(ctx: click.Context) -> str:
 @click.option("--qa-bits", "qa_bits", default=None, metavar="1,3,...",
               help="QA bit positions (0 = least significant) that mark a pixel invalid. Default with --qa: "
                    "any non-zero QA value.")
+@click.option("--mesma", is_flag=True, default=False,
+              help="Multiple endmember unmixing: the library's class labels make bundles (a class named 'shade' "
+                   "is the photometric shade); each pixel and date picks at most one member per class, the "
+                   "simplest model within --max-rmse and fractions -0.05..1.05 (Roberts et al. 1998). Also "
+                   "writes `members` (chosen member per class) and `unmodelled`. --constraint: fcls or sum-to-one.")
+@click.option("--max-rmse", "max_rmse", type=click.FloatRange(min=0, min_open=True), default=0.025,
+              show_default=True, help="With --mesma: largest model RMSE accepted [reflectance].")
 @click.option("--cog", is_flag=True, default=False,
               help="Also write OUT/fractions_<endmember>.tif, Cloud-Optimized GeoTIFFs with one band per date.")
 @click.option("--compress-level", "compress_level", type=click.IntRange(0, 9), default=1, show_default=True,
@@ -131,7 +159,7 @@ def _command_line(ctx: click.Context) -> str:
 def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str, band_names: str | None,
               endmember_names: str | None, constraint: str, out: Path, overwrite: bool, align: bool,
               resampling: str, dates: Path | None, scale: float | None, offset: float | None, qa: str | None,
-              qa_bits: str | None, cog: bool, compress_level: int, workers: int | None,
+              qa_bits: str | None, mesma: bool, max_rmse: float, cog: bool, compress_level: int, workers: int | None,
               scheduler: str | None, chunk_size: int | None) -> None:
     """Fractions of every endmember in every pixel and date of STACK.
 
@@ -161,7 +189,11 @@ def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str, band_
     lib = read_library(library)
     if wanted is not None:
         lib = lib.select(wanted)
-    names = list(lib.names)
+    if mesma and constraint not in (Constraint.FCLS.value, Constraint.SUM_TO_ONE.value):
+        raise InputError(f"--mesma solves each model under fcls or sum-to-one, not {constraint}; "
+                         "choose --constraint fcls or --constraint sum-to-one")
+    classes = list(dict.fromkeys(c or n for c, n in zip(lib.classes, lib.names)))
+    names = ([c for c in classes if c != "shade"] + ["shade"] * ("shade" in classes)) if mesma else list(lib.names)
     cog_paths = [out / f"fractions_{n}.tif" for n in names] if cog else []
     for p in cog_paths:
         check_can_write(p, overwrite)
@@ -175,14 +207,24 @@ def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str, band_
     )
     stack_bands = [str(b) for b in cube["band"].values]
     M = endmember_matrix(lib, sensor_obj, stack_bands, library)
-    ds = unmix_cube(cube, M, names=names, constraint=constraint)
+    if mesma:
+        from ..cube.mesma import mesma_cube
+
+        bundles, shade, members = mesma_bundles(lib, M)
+        ds = mesma_cube(cube, bundles, shade=shade, constraint=constraint, max_rmse=max_rmse)
+        ds["members"].attrs["member_names"] = json.dumps(members)
+        valid = np.isfinite(ds["fractions"].isel(endmember=0)).sum("time").astype(np.int32)
+        ds["valid_count"] = valid.assign_attrs(long_name="dates with a valid fraction", units="1")
+    else:
+        ds = unmix_cube(cube, M, names=names, constraint=constraint)
 
     command = _command_line(ctx)
     parameters = {
         "sensor": sensor_obj.id, "bands": stack_bands, "endmembers": names, "constraint": constraint,
         "library": str(library), "scale": scale, "offset": offset, "qa": qa, "qa_bits": list(bits),
         "align": align, "resampling": resampling if align else None, "dates": str(dates) if dates else None,
-        "chunk_size": chunk_size,
+        "chunk_size": chunk_size, "mesma": mesma, "max_rmse": max_rmse if mesma else None,
+        "library_spectra": list(lib.names),
     }
     input_files = list(cube.attrs.get("input_files", ())) + [str(library)]
 
@@ -219,7 +261,7 @@ def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str, band_
     share = stats["valid"] / (pixels * n_t) if pixels * n_t else float("nan")
     extra = f" (+{len(cog_paths)} COG)" if cog_paths else ""
     echo_summary(
-        f"fractions: {pixels} pixels x {n_t} dates x {len(names)} endmembers ({constraint}); "
+        f"fractions: {pixels} pixels x {n_t} dates x {len(names)} endmembers ({'MESMA, ' if mesma else ''}{constraint}); "
         f"mean rmse {mean_rmse:.4f}; valid {100 * share:.1f} % of pixel-dates; "
         f"-> {nc_path}{extra}; {time.perf_counter() - started:.1f} s on {mode}"
     )
