@@ -30,6 +30,7 @@ from .sensors import Band, Sensor, get_sensor
 __all__ = [
     "SpectralLibrary",
     "band_weights",
+    "on_bands",
     "resample",
     "resample_spectra",
     "spectral_angle",
@@ -374,6 +375,54 @@ def resample(
         tuple(b.name for b in bands),
         md,
     )
+
+
+def on_bands(library: SpectralLibrary, sensor, band_names, *, where: str = "the library") -> SpectralLibrary:
+    """The library on a stack's bands: resampled when it is full-resolution, else its bands picked by name.
+
+    Parameters
+    ----------
+    library : SpectralLibrary
+        Full-resolution, or already resampled to ``sensor`` (``band_names`` set).
+    sensor : str or Sensor
+        Sensor of the stack.
+    band_names : sequence of str
+        The stack's band names, in the stack's order.
+    where : str
+        How error messages name the library (for example ``"--library lib.csv"``).
+
+    Raises
+    ------
+    BandMismatchError
+        A resampled library of another sensor, or one lacking a band of the stack.
+
+    Examples
+    --------
+    >>> lib = SpectralLibrary(np.array([480.0, 560.0, 660.0]), np.array([[0.1, 0.2, 0.3]]), ("a",),
+    ...                       band_names=("B2", "B3", "B4"), metadata={"sensor": "landsat-8-oli"})
+    >>> on_bands(lib, "landsat-8-oli", ["B4", "B2"]).spectra.tolist()
+    [[0.3, 0.1]]
+    """
+    from .sensors import get_sensor
+
+    sensor = get_sensor(sensor)
+    bands = [str(b) for b in band_names]
+    if not library.resampled:
+        return resample(library, sensor, bands)
+    if library.sensor and str(library.sensor) != sensor.id:
+        raise BandMismatchError(
+            f"{where} is resampled to {library.sensor} bands but the stack's sensor is {sensor.id}; use a library "
+            f"resampled to {sensor.id} or the full-resolution library"
+        )
+    missing = [b for b in bands if b not in library.band_names]
+    if missing:
+        raise BandMismatchError(
+            f"{where} has no band {', '.join(missing)} (it has {', '.join(library.band_names)}); resample the "
+            "full-resolution library to the stack's bands or fix --band-names"
+        )
+    rows = [library.band_names.index(b) for b in bands]
+    return SpectralLibrary(library.wavelengths[rows], library.spectra[:, rows], library.names, library.classes,
+                           tuple(bands), dict(library.metadata))
 
 
 def spectral_angle(a, b) -> np.ndarray:

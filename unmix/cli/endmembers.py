@@ -8,13 +8,13 @@ import click
 import numpy as np
 
 from .. import __version__
-from ..errors import BandMismatchError, InputError
+from ..errors import InputError
 from ..extraction import CountMethod, ExtractionMethod, estimate_count, extract, match_library, sample_stack
 from ..io.library import read_library, sidecar_path, write_library
 from ..io.stack import open_stack
 from ..pruning import PruningMethod, prune
 from ..sensors import get_sensor
-from ..spectra import SpectralLibrary, resample
+from ..spectra import SpectralLibrary, on_bands
 from ._common import SENSOR_HELP, check_can_write, echo_summary, overwrite_option, split_names
 
 __all__ = ["endmembers"]
@@ -40,27 +40,6 @@ def _parse_count(text: str) -> int | None:
     if count < 2:
         raise InputError(f"--count {count} must be at least 2 (or 'auto')")
     return count
-
-
-def _library_on_bands(lib: SpectralLibrary, sensor_id: str, bands: list[str], path: Path) -> SpectralLibrary:
-    """The reference library on the stack's bands (resampled if it is full-resolution)."""
-    if not lib.resampled:
-        return resample(lib, sensor_id, bands)
-    if lib.sensor is not None and lib.sensor != sensor_id:
-        raise BandMismatchError(
-            f"--library {path} is resampled to {lib.sensor} but the stack is {sensor_id}; "
-            "give the full-resolution library instead"
-        )
-    missing = [b for b in bands if b not in lib.band_names]
-    if missing:
-        raise BandMismatchError(
-            f"--library {path} has no band {', '.join(missing)} (it holds {', '.join(lib.band_names)}); "
-            "give the full-resolution library instead"
-        )
-    rows = [lib.band_names.index(b) for b in bands]
-    return SpectralLibrary(
-        lib.wavelengths[rows], lib.spectra[:, rows], lib.names, lib.classes, tuple(bands), dict(lib.metadata)
-    )
 
 
 @click.group("endmembers")
@@ -134,7 +113,7 @@ def extract_command(
     cube = open_stack(source, sensor=sensor, band_names=split_names(band_names))
     bands = [str(b) for b in cube["band"].values]
     wavelengths = np.array([sensor.band(b).centre_nm for b in bands])
-    ref = _library_on_bands(reference, sensor.id, bands, library_path) if reference is not None else None
+    ref = on_bands(reference, sensor, bands, where=f"--library {library_path}") if reference is not None else None
 
     smp = sample_stack(cube.data, sample_size=sample_size, seed=seed)
     if count is None:

@@ -17,22 +17,14 @@ from typing import Any
 import click
 import numpy as np
 
-from ..errors import BandMismatchError, InputError
+from ..errors import InputError
 from ..io.stack import Resampling
 from ..solvers import Constraint
-from ._common import check_can_write, echo_summary, out_dir_option, overwrite_option
+from ..spectra import on_bands
+from ._common import check_can_write, echo_summary, out_dir_option, overwrite_option, split_names
 from ._scheduler import dask_scheduler, scheduler_options
 
-__all__ = ["fractions", "endmember_matrix"]
-
-
-def _split_list(text: str | None, what: str) -> list[str] | None:
-    if text is None:
-        return None
-    items = [t.strip() for t in text.split(",") if t.strip()]
-    if not items:
-        raise InputError(f"{what} is empty; give comma-separated names, e.g. B2,B3,B4")
-    return items
+__all__ = ["fractions", "mesma_bundles"]
 
 
 def _int_list(text: str | None, what: str) -> tuple[int, ...]:
@@ -42,34 +34,6 @@ def _int_list(text: str | None, what: str) -> tuple[int, ...]:
         return tuple(int(t) for t in text.split(",") if t.strip())
     except ValueError:
         raise InputError(f"{what} must be comma-separated whole numbers (bit positions), got {text!r}") from None
-
-
-def endmember_matrix(library: Any, sensor: Any, band_names: list[str], library_path: Any = None) -> np.ndarray:
-    """Endmember spectra (endmember, band) in the stack's band order.
-
-    A library already resampled to sensor bands (``band_names`` set) is used as it is, its bands
-    picked by name; a full-resolution library is resampled to ``sensor`` with
-    :func:`unmix.spectra.resample`.
-    """
-    where = f"library {library_path}" if library_path else "the library"
-    if library.band_names is not None:
-        lib_sensor = library.metadata.get("sensor")
-        if lib_sensor and str(lib_sensor) != str(sensor.id):
-            raise BandMismatchError(
-                f"{where} is resampled to {lib_sensor} bands but --sensor is {sensor.id}; use a library resampled "
-                f"to {sensor.id} or the full-resolution library"
-            )
-        missing = [b for b in band_names if b not in library.band_names]
-        if missing:
-            raise BandMismatchError(
-                f"{where} has no band {', '.join(missing)} (it has {', '.join(library.band_names)}); resample the "
-                "full-resolution library to the stack's bands or fix --band-names"
-            )
-        idx = [library.band_names.index(b) for b in band_names]
-        return np.asarray(library.spectra, dtype=np.float64)[:, idx]
-    from ..spectra import resample
-
-    return np.asarray(resample(library, sensor, band_names).spectra, dtype=np.float64)
 
 
 def mesma_bundles(library: Any, M: np.ndarray) -> tuple[dict[str, np.ndarray], np.ndarray | None, dict[str, list[str]]]:
@@ -180,8 +144,8 @@ def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str, band_
     from ..cube.fractions import unmix_cube
 
     sensor_obj = get_sensor(sensor)
-    bands = _split_list(band_names, "--band-names")
-    wanted = _split_list(endmember_names, "--endmembers")
+    bands = split_names(band_names, "--band-names")
+    wanted = split_names(endmember_names, "--endmembers")
     bits = _int_list(qa_bits, "--qa-bits")
     if qa_bits and qa is None:
         raise InputError("--qa-bits needs --qa (the QA band or the folder of mask files)")
@@ -206,7 +170,7 @@ def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str, band_
         qa_bits=bits, align=align, resampling=resampling, chunks=chunk_size,
     )
     stack_bands = [str(b) for b in cube["band"].values]
-    M = endmember_matrix(lib, sensor_obj, stack_bands, library)
+    M = np.asarray(on_bands(lib, sensor_obj, stack_bands, where=f"library {library}").spectra)
     if mesma:
         from ..cube.mesma import mesma_cube
 
