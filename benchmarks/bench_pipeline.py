@@ -143,6 +143,10 @@ def kernel_only_rate(files: list[Path], n_dates: int, repeats: int = 2) -> tuple
     return pixel_dates / best, pixel_dates / best_cpu, pixel_dates
 
 
+def _met(ok: bool) -> str:
+    return "met" if ok else "NOT met"
+
+
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--size", type=int, default=1000, help="image edge [pixels] (full case: 2000)")
@@ -193,11 +197,17 @@ def main(argv: list[str] | None = None) -> None:
     print(f"{'':>5} {'':>8} {'(wall)':>14} {'(wall)':>10} {'(CPU)':>10} {'(tree)':>10}")
     for n, seconds, rate, ratio, cpu_ratio, peak in rows:
         print(f"{n:>5} {seconds:>8.1f} {rate:>14,.0f} {ratio:>10.2f} {cpu_ratio:>10.2f} {peak / 2**30:>7.2f} GB")
+    print()
+    print("targets (2 cores):")
+    for n, seconds, rate, ratio, cpu_ratio, peak in rows:
+        print(f"  {n:>3} dates: e2e/kernel (wall) {ratio:.2f} >= 0.25: {_met(ratio >= 0.25)}; "
+              f"peak RSS {peak / 2**30:.2f} GB < 3 GB: {_met(peak < 3 * 2**30)}")
     if len(rows) > 1:
-        print(f"peak memory ratio {rows[-1][0]} vs {rows[0][0]} dates: {rows[-1][5] / rows[0][5]:.2f} "
-              "(target <= 1.3); targets: e2e/kernel >= 0.25, peak < 3 GB")
+        mem_ratio = rows[-1][5] / rows[0][5]
+        print(f"  peak memory {rows[-1][0]} vs {rows[0][0]} dates: {mem_ratio:.2f} <= 1.3: {_met(mem_ratio <= 1.3)}")
     print("(CPU ratio = kernel CPU-seconds / e2e CPU-seconds per pixel-date: less sensitive to other load)")
-    print(f"load average at end {os.getloadavg()[0]:.1f}")
+    level = "default (1)" if args.compress_level is None else str(args.compress_level)
+    print(f"NetCDF compression level: {level}; load average at end {os.getloadavg()[0]:.1f}")
 
 
 if __name__ == "__main__":

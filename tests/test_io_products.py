@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import json
 import os
+import zlib
 
 import dask
 import dask.array as da
@@ -16,6 +17,8 @@ import pytest
 import rasterio
 import xarray as xr
 from affine import Affine
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from unmix.errors import OutputExistsError
 from unmix.io.products import CAUTION, open_product, write_cog, write_netcdf
@@ -152,3 +155,280 @@ def test_cog_band_descriptions_are_dates_and_layout_is_cog(tmp_path):
         write_cog(ds["fractions"].sel(endmember="bright_soil"), path)
     assert path.read_bytes() == before
     assert sorted(p.name for p in tmp_path.iterdir()) == ["soil.tif"]
+
+
+# --------------------------------------------------------------------------------------------------
+# compressed writes: chunks are shuffled + deflated in the dask tasks, HDF5 only stores them
+
+
+def _edge_dataset(height, width, chunks_y, chunks_x, lazy=True, seed=3):
+    """A dataset whose sizes are not multiples of the chunks (HDF5 edge chunks), with NaN and ints."""
+    rng = np.random.default_rng(seed)
+    frac = rng.random((len(DATES), 2, height, width)).astype(np.float32)
+    frac[rng.random(frac.shape) < 0.05] = np.nan
+    frac[1, :, :3, :] = np.nan  # a whole no-data strip
+    labels = rng.integers(-3, 4, size=(2, height, width)).astype(np.int8)
+    if lazy:
+        arr = da.from_array(frac, chunks=((1, 1, 1), (2,), chunks_y, chunks_x))
+        lab = da.from_array(labels, chunks=((1, 1), chunks_y, chunks_x))
+    else:
+        arr, lab = frac, labels
+    x = TRANSFORM.c + TRANSFORM.a * (np.arange(width) + 0.5)
+    y = TRANSFORM.f + TRANSFORM.e * (np.arange(height) + 0.5)
+    georef = {"crs_wkt": CRS.to_wkt(), "transform": tuple(TRANSFORM)[:6]}
+    ds = xr.Dataset(
+        {
+            "fractions": (("time", "endmember", "y", "x"), arr, {"units": "1", **georef}),
+            "rmse": (("time", "y", "x"), arr[:, 0] * np.float32(0.01), {"units": "1", **georef}),
+            "label": (("endmember", "y", "x"), lab, georef),
+        },
+        coords={"time": DATES, "endmember": ["green_vegetation", "bright_soil"], "y": y, "x": x},
+    )
+    return ds, {"fractions": frac, "rmse": frac[:, 0] * np.float32(0.01), "label": labels}
+
+
+def _assert_reads_back(path, expected):
+    """Values through three independent readers: netCDF4-python, xarray and GDAL (rasterio)."""
+    with netCDF4.Dataset(path) as nc:
+        for name, want in expected.items():
+            var = nc[name]
+            var.set_auto_mask(False)
+            got = var[:]
+            assert got.dtype == want.dtype
+            np.testing.assert_array_equal(got, want)  # NaN where NaN, bit-equal elsewhere
+    with xr.open_dataset(path, mask_and_scale=False) as back:
+        for name, want in expected.items():
+            assert back[name].dtype == want.dtype
+            np.testing.assert_array_equal(back[name].values, want)
+    # GDAL orders the bands of (time, y, x) by time
+    with rasterio.open(f"netcdf:{path}:rmse") as src:
+        np.testing.assert_array_equal(src.read(), expected["rmse"])
+        assert src.dtypes[0] == "float32"
+
+
+@pytest.mark.parametrize("complevel", [0, 1, 5])
+@pytest.mark.parametrize(
+    ("height", "width", "chunks_y", "chunks_x"),
+    [
+        (21, 37, (8, 8, 5), (16, 16, 5)),  # edge chunks on both axes
+        (21, 37, (8, 5, 8), (10, 27)),  # dask blocks not on the chunk grid: rechunked before writing
+        (9, 7, (9,), (7,)),  # one chunk smaller than nothing: whole image in one block
+    ],
+)
+def test_compressed_values_read_back_exactly(tmp_path, complevel, height, width, chunks_y, chunks_x):
+    ds, expected = _edge_dataset(height, width, chunks_y, chunks_x)
+    path = write_netcdf(ds, tmp_path / "p.nc", complevel=complevel, scheduler="threads")
+    _assert_reads_back(path, expected)
+    with netCDF4.Dataset(path) as nc:
+        for name in expected:
+            filters = nc[name].filters()
+            # the filters a netCDF reader sees are ordinary zlib + shuffle (none at level 0)
+            assert bool(filters["zlib"]) == (complevel > 0) and bool(filters["shuffle"]) == (complevel > 0)
+            if complevel:
+                assert filters["complevel"] == complevel
+            assert not filters["fletcher32"]
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["p.nc"]
+
+
+def test_eager_dataset_is_compressed_in_parallel_path_too(tmp_path):
+    ds, expected = _edge_dataset(21, 37, (8, 8, 5), (16, 16, 5), lazy=False)
+    path = write_netcdf(ds, tmp_path / "p.nc", complevel=2)
+    _assert_reads_back(path, expected)
+    with netCDF4.Dataset(path) as nc:
+        assert nc["fractions"].filters()["zlib"] and nc["fractions"].chunking() == [1, 1, 21, 37]  # eager: whole image per chunk (< 512 px)
+
+
+def test_stored_chunks_are_hdf5_shuffle_then_deflate(tmp_path):
+    h5py = pytest.importorskip("h5py")
+
+    ds, expected = _edge_dataset(21, 37, (8, 8, 5), (16, 16, 5))
+    path = write_netcdf(ds, tmp_path / "p.nc", complevel=3)
+    with h5py.File(path, "r") as f:
+        dset = f["fractions"]
+        plist = dset.id.get_create_plist()
+        codes = [plist.get_filter(i)[0] for i in range(plist.get_nfilters())]
+        # HDF5 filter ids: 2 = shuffle, 1 = deflate, applied in this order when writing (HDF5 reference manual)
+        assert codes == [2, 1]
+        assert dset.chunks == (1, 1, 8, 16)
+        # the last chunk of the grid is an edge chunk stored at full size: undo deflate and shuffle by hand
+        mask, raw = dset.id.read_direct_chunk((2, 1, 16, 32))
+        assert mask == 0
+        unshuffled = np.frombuffer(zlib.decompress(raw), np.uint8).reshape(4, -1).T.copy().view(np.float32)
+        chunk = unshuffled.reshape(8, 16)
+        np.testing.assert_array_equal(chunk[:5, :5], expected["fractions"][2, 1, 16:21, 32:37])
+        assert np.isnan(chunk[5:]).all() and np.isnan(chunk[:, 5:]).all()  # padded with the NaN fill value
+
+
+def test_distributed_processes_write_the_same_file_contents(tmp_path):
+    distributed = pytest.importorskip("distributed")
+    ds, expected = _edge_dataset(21, 37, (8, 8, 5), (16, 16, 5))
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=":0") as cluster:
+        with distributed.Client(cluster) as client:
+            def compute(delayed):
+                client.compute(delayed).result()
+
+            path = write_netcdf(ds, tmp_path / "p.nc", complevel=1, compute=compute)
+    threads = write_netcdf(ds, tmp_path / "t.nc", complevel=1, scheduler="threads")
+    _assert_reads_back(path, expected)
+    a, b = open_product(path), open_product(threads)
+    for name in expected:
+        np.testing.assert_array_equal(a[name].values, b[name].values)
+    assert sorted(p.name for p in tmp_path.iterdir() if not p.name.startswith("dask-")) == ["p.nc", "t.nc"]
+
+
+@pytest.mark.parametrize("complevel", [0, 1])
+def test_failure_after_some_chunks_leaves_no_file(tmp_path, complevel):
+    from unmix.io import _chunked_writer
+
+    ds, _ = _edge_dataset(21, 37, (8, 8, 5), (16, 16, 5))
+
+    def broken(block, block_info=None):
+        if block_info[0]["chunk-location"][0] == 2:  # the last date fails, earlier ones were written
+            raise RuntimeError("disk full")
+        return block
+
+    ds["fractions"] = ds["fractions"].copy(data=ds["fractions"].data.map_blocks(broken, dtype=np.float32))
+    with pytest.raises(RuntimeError, match="disk full"):
+        write_netcdf(ds, tmp_path / "p.nc", complevel=complevel, scheduler="threads")
+    assert list(tmp_path.iterdir()) == []  # neither the product nor its temporary file
+    assert _chunked_writer._HANDLES == {}  # and no file handle left open
+
+
+def _planes(kind, n, rng):
+    if kind == "random":
+        return rng.integers(0, 256, n).astype(np.uint8)
+    if kind == "constant":
+        return np.full(n, 7, np.uint8)
+    if kind == "ramp":  # looks uniform byte by byte, but repeats: only match search finds it
+        return (np.arange(n) % 256).astype(np.uint8)
+    return rng.choice(np.array([0x3E, 0x3F, 0x7F], np.uint8), size=n, p=[0.6, 0.35, 0.05])  # exponent-like
+
+
+@pytest.mark.parametrize("level", [1, 3, 4, 9])
+@pytest.mark.parametrize(
+    "layout",
+    [
+        [("random", 262144), ("random", 262144), ("skewed", 262144), ("skewed", 262144)],  # float32 chunk
+        [("random", 65535), ("constant", 65536), ("ramp", 200001)],  # stored-block edges (65535 bytes)
+        [("skewed", 10)],  # shorter than the trial sample
+        [("random", 1)],
+        [("constant", 0), ("random", 5)],
+        [],
+    ],
+)
+def test_zlib_stream_is_standard_zlib(level, layout):
+    from unmix.io._deflate import zlib_stream
+
+    rng = np.random.default_rng(level)
+    segments = [_planes(kind, n, rng) for kind, n in layout]
+    stream = zlib_stream(segments, level)
+    # the reference decoder: the zlib library's inflate, as HDF5's deflate filter uses it (RFC 1950/1951)
+    assert zlib.decompress(stream) == b"".join(s.tobytes() for s in segments)
+    raw = sum(s.size for s in segments)
+    if layout and all(kind == "random" for kind, _ in layout):
+        # incompressible planes are copied into stored blocks: 5 bytes per 64 KiB + 6 bytes of zlib frame
+        assert len(stream) <= raw + 5 * (raw // 65535 + len(layout)) + 6
+    if raw > 100000 and any(kind in ("constant", "skewed") for kind, _ in layout):
+        assert len(stream) < 0.9 * raw  # compressible planes are compressed
+
+
+def test_chunk_target_bytes_decode_like_hdf5(tmp_path):
+    """An h5py dataset (HDF5 compresses) and our direct chunks read back the same through HDF5."""
+    h5py = pytest.importorskip("h5py")
+    from unmix.io._chunked_writer import ChunkTarget
+
+    rng = np.random.default_rng(5)
+    data = rng.random((2, 40, 30)).astype(np.float32)
+    data[0, :5] = np.nan
+    path = tmp_path / "t.h5"
+    with h5py.File(path, "w") as f:
+        # h5py's own shuffle + gzip (deflate) pipeline, filled by HDF5 itself
+        f.create_dataset("ref", data=data, chunks=(1, 16, 16), shuffle=True, compression="gzip", compression_opts=1,
+                         fillvalue=np.float32(np.nan))
+        f.create_dataset("ours", shape=data.shape, dtype="f4", chunks=(1, 16, 16), shuffle=True, compression="gzip",
+                         compression_opts=1, fillvalue=np.float32(np.nan))
+    target = ChunkTarget(str(path), "ours", data.shape, (1, 16, 16), np.dtype("f4"), np.float32(np.nan), (2, 1), 1)
+    target[(slice(0, 2), slice(0, 40), slice(0, 30))] = data  # one block, edge chunks on y and x
+    from unmix.io import _chunked_writer
+
+    _chunked_writer.release(str(path))
+    with h5py.File(path, "r") as f:
+        np.testing.assert_array_equal(f["ours"][...], data)
+        np.testing.assert_array_equal(f["ours"][...], f["ref"][...])
+
+
+def _fibonacci_plane(rng):
+    """Byte counts in Fibonacci proportion: the most skewed counts, so the deepest Huffman codes."""
+    counts = [1, 1]
+    while len(counts) < 26:
+        counts.append(counts[-1] + counts[-2])
+    plane = np.repeat(np.arange(len(counts), dtype=np.uint8), counts)
+    return rng.permutation(plane)
+
+
+@pytest.mark.parametrize("limit", [7, 10, 15])
+def test_huffman_code_lengths_respect_the_limit(limit):
+    from unmix.io._deflate import _huffman_lengths
+
+    plane = _fibonacci_plane(np.random.default_rng(0))
+    freq = np.bincount(plane, minlength=257).astype(np.int64)
+    freq[256] = 1  # end of block
+    unlimited = _huffman_lengths(freq, 64)
+    lengths = _huffman_lengths(freq, limit)
+    # Kraft's inequality (a prefix code exists) and the length limit (RFC 1951: 15 bits for literals)
+    for code in (unlimited, lengths):
+        assert np.sum(2.0 ** -code[code > 0].astype(float)) <= 1.0
+        assert ((code > 0) == (freq > 0)).all()
+    assert lengths.max() <= limit
+    # optimality of the unlimited code: no worse than the limited one, and within 1 bit of the entropy (Shannon)
+    p = freq[freq > 0] / freq.sum()
+    entropy = -np.sum(p * np.log2(p)) * freq.sum()
+    assert entropy <= np.sum(freq * unlimited) <= np.sum(freq * lengths)
+    assert np.sum(freq * unlimited) < entropy + freq.sum()
+
+
+@pytest.mark.parametrize("level", [1, 6])
+def test_zlib_stream_of_skewed_bytes(level):
+    from unmix.io._deflate import zlib_stream
+
+    rng = np.random.default_rng(0)
+    plane = _fibonacci_plane(rng)
+    tail = rng.integers(0, 256, 1000).astype(np.uint8)
+    stream = zlib_stream([plane, tail], level)
+    assert zlib.decompress(stream) == plane.tobytes() + tail.tobytes()  # reference: zlib's inflate
+    assert len(stream) < 0.5 * plane.size  # under 2 bits per byte: the skew is used
+
+
+@settings(max_examples=40, deadline=None)
+@given(
+    sizes=st.lists(st.integers(0, 70000), min_size=1, max_size=4),
+    alphabet=st.integers(1, 256),
+    level=st.sampled_from([1, 2, 3, 5]),
+    seed=st.integers(0, 2**32 - 1),
+)
+def test_zlib_stream_round_trips(sizes, alphabet, level, seed):
+    from unmix.io._deflate import zlib_stream
+
+    rng = np.random.default_rng(seed)
+    segments = [rng.integers(0, alphabet, n).astype(np.uint8) for n in sizes]
+    # reference decoder: the zlib library (RFC 1950 / 1951)
+    assert zlib.decompress(zlib_stream(segments, level)) == b"".join(s.tobytes() for s in segments)
+
+
+def test_unexpected_filter_pipeline_falls_back_to_hdf5(tmp_path):
+    """A dataset with a filter we do not reproduce (Fletcher-32 checksum) is written by HDF5 itself."""
+    h5py = pytest.importorskip("h5py")
+    from unmix.io import _chunked_writer
+
+    path = tmp_path / "t.h5"
+    data = np.random.default_rng(2).random((20, 30)).astype(np.float32)
+    with h5py.File(path, "w") as f:
+        f.create_dataset("v", shape=data.shape, dtype="f4", chunks=(8, 16), shuffle=True, compression="gzip",
+                         fletcher32=True)
+    with h5py.File(path, "r") as f:
+        target = _chunked_writer._target_for(f, str(path), "v")
+    assert target.pipeline is None
+    target[(slice(0, 20), slice(0, 30))] = data
+    _chunked_writer.release(str(path))
+    with h5py.File(path, "r") as f:
+        np.testing.assert_array_equal(f["v"][...], data)

@@ -31,6 +31,7 @@ import xarray as xr
 
 from .. import __version__
 from ..errors import InputError, OutputExistsError, StackReadError
+from ._chunked_writer import define_and_plan, release
 
 __all__ = [
     "CAUTION",
@@ -394,9 +395,10 @@ def write_netcdf(
         Provenance, see :func:`provenance_attrs`. Attributes already on ``ds`` are kept.
     complevel : int, default 1
         zlib level 0-9 (with byte shuffle); 0 writes uncompressed. Full-precision float fractions
-        compress poorly (to about 85 % at level 1) and higher levels cost much more time than they
-        save space, so the default is the fastest level; the writer holds HDF5's lock while it
-        compresses, so compression time is not spread over threads.
+        compress poorly (to about 80 % at level 1) and higher levels cost much more time than they
+        save space, so the default is the fastest level. Chunks are shuffled and deflated in the
+        dask tasks (threads or distributed workers) in parallel and HDF5 only stores the finished
+        chunks (see :mod:`unmix.io._chunked_writer`); the file is an ordinary NetCDF4 file.
     compute : callable, optional
         Called with the delayed write to run it (e.g. ``SchedulerContext.compute`` for a cluster and
         a progress bar). Default: ``dask.compute(delayed, **compute_kwargs)``.
@@ -437,11 +439,19 @@ def write_netcdf(
     )
     prepared.attrs = {**prepared.attrs, **prov}
     with atomic_path(path, overwrite=overwrite) as tmp:
-        delayed = prepared.to_netcdf(tmp, engine="netcdf4", format="NETCDF4", encoding=encoding, compute=False)
-        if compute is not None:
-            compute(delayed)
+        if int(complevel) == 0:
+            # uncompressed: HDF5 only copies bytes, xarray's own writer keeps up
+            delayed = prepared.to_netcdf(tmp, engine="netcdf4", format="NETCDF4", encoding=encoding, compute=False)
         else:
-            dask.compute(delayed, **compute_kwargs)
+            # compressed: the dask tasks shuffle + deflate the chunks in parallel, HDF5 only stores them
+            delayed = define_and_plan(prepared, tmp, encoding)
+        try:
+            if compute is not None:
+                compute(delayed)
+            else:
+                dask.compute(delayed, **compute_kwargs)
+        finally:
+            release(tmp)
     return path
 
 
