@@ -33,6 +33,8 @@ from .fractions import fractions as _fractions_command  # noqa: E402
 cli.add_command(_fractions_command)
 from .library import library as _library_command  # noqa: E402
 cli.add_command(_library_command)
+from .report import report as _report_command  # noqa: E402
+cli.add_command(_report_command)
 from .sensors import sensors as _sensors_command  # noqa: E402
 cli.add_command(_sensors_command)
 from .trends import trends as _trends_command  # noqa: E402
