@@ -54,6 +54,7 @@ import xarray as xr
 from .. import __version__
 from ..errors import InputError, ShapeError
 from ..dates import decimal_years
+from .georef import pixel_area_m2
 from ..trajectory import (
     FLAG_MEANINGS,
     FLAG_VALUES,
@@ -63,7 +64,6 @@ from ..trajectory import (
     effect_sizes,
     evaluate_rules,
     label_trajectories,
-    pixel_area,
     rank_tests,
 )
 from ..trend import DEFAULT_CORRECTION, MannKendallCorrection, fdr
@@ -227,39 +227,6 @@ def _fractions_of(fractions_ds) -> xr.DataArray:
     if not np.issubdtype(fr.dtype, np.floating):
         fr = fr.astype(np.float32)
     return fr.transpose(*need)
-
-
-def pixel_area_m2(ds) -> tuple[float, str]:  # also used by the report tables
-    """Pixel area [m^2] from the grid mapping / transform / x-y spacing, and a note on how it was found."""
-    wkt = None
-    transform = None
-    if "spatial_ref" in ds.coords:
-        sr = ds.coords["spatial_ref"].attrs
-        wkt = sr.get("crs_wkt") or sr.get("spatial_ref")
-        gt = sr.get("GeoTransform")
-        if gt:
-            c, a, b, f, d, e = (float(v) for v in str(gt).split())
-            transform = (a, b, c, d, e, f)
-    items = [ds] if isinstance(ds, xr.DataArray) else [ds, *ds.data_vars.values()]
-    for item in items:
-        wkt = wkt or item.attrs.get("crs_wkt")
-        if transform is None and item.attrs.get("transform") is not None:
-            transform = tuple(float(v) for v in np.ravel(item.attrs["transform"])[:6])
-    if transform is None and ds.sizes.get("x", 0) > 1 and ds.sizes.get("y", 0) > 1:
-        x = np.asarray(ds["x"].values, dtype=np.float64)
-        y = np.asarray(ds["y"].values, dtype=np.float64)
-        transform = ((x[-1] - x[0]) / (x.size - 1), 0.0, 0.0, 0.0, (y[-1] - y[0]) / (y.size - 1), 0.0)
-    if transform is None:
-        return float("nan"), "unknown pixel size (fewer than 2 pixels along x or y and no transform)"
-    if wkt:
-        try:
-            from rasterio.crs import CRS
-
-            if CRS.from_wkt(wkt).is_geographic:
-                return float("nan"), "geographic CRS (degrees): reproject to a projected CRS for areas"
-        except Exception:  # an unreadable WKT: fall back to assuming metres
-            pass
-    return pixel_area(transform), "pixel area from the grid transform, map units taken as metres"
 
 
 # --------------------------------------------------------------------------------------------------

@@ -31,6 +31,7 @@ import xarray as xr
 
 from .. import __version__
 from ..errors import InputError, OutputExistsError, StackReadError
+from ..cube.georef import georef_of
 from ._chunked_writer import define_and_plan, release
 
 __all__ = [
@@ -133,41 +134,6 @@ def xy_attrs(crs: Any) -> tuple[dict[str, str], dict[str, str]]:
         {"standard_name": "projection_x_coordinate", "long_name": "x coordinate of pixel centre", "units": unit, "axis": "X"},
         {"standard_name": "projection_y_coordinate", "long_name": "y coordinate of pixel centre", "units": unit, "axis": "Y"},
     )
-
-
-def _transform_from_coords(obj: xr.Dataset | xr.DataArray) -> tuple[float, ...] | None:
-    """Affine (a, b, c, d, e, f) from regularly spaced pixel-centre ``x``/``y`` coordinates."""
-    if "x" not in obj.coords or "y" not in obj.coords:
-        return None
-    x = np.asarray(obj["x"].values, dtype="float64")
-    y = np.asarray(obj["y"].values, dtype="float64")
-    if x.size < 2 or y.size < 2:
-        return None
-    dx = (x[-1] - x[0]) / (x.size - 1)
-    dy = (y[-1] - y[0]) / (y.size - 1)
-    return (dx, 0.0, x[0] - dx / 2, 0.0, dy, y[0] - dy / 2)
-
-
-def _georef_of(obj: xr.Dataset | xr.DataArray) -> tuple[str | None, tuple[float, ...] | None]:
-    """(crs_wkt, transform) found on ``obj``: ``spatial_ref`` coordinate first, then attributes."""
-    wkt = None
-    transform = None
-    if "spatial_ref" in obj.coords:
-        sr = obj.coords["spatial_ref"].attrs
-        wkt = sr.get("crs_wkt") or sr.get("spatial_ref")
-        gt = sr.get("GeoTransform")
-        if gt:
-            c, a, b, f, d, e = (float(v) for v in str(gt).split())
-            transform = (a, b, c, d, e, f)
-    variables = [obj] if isinstance(obj, xr.DataArray) else [obj, *obj.data_vars.values()]
-    for item in variables:
-        if wkt is None and item.attrs.get("crs_wkt"):
-            wkt = item.attrs["crs_wkt"]
-        if transform is None and item.attrs.get("transform") is not None:
-            transform = tuple(float(v) for v in np.ravel(item.attrs["transform"])[:6])
-    if transform is None:
-        transform = _transform_from_coords(obj)
-    return wkt, transform
 
 
 # --------------------------------------------------------------------------------------------------
@@ -306,7 +272,7 @@ def _prepare_dataset(ds: xr.Dataset, complevel: int = 1) -> tuple[xr.Dataset, di
     ds = ds.copy(deep=False)
     for var in ds.variables.values():
         var.encoding = {}
-    wkt, transform = _georef_of(ds)
+    wkt, transform = georef_of(ds)
     gridded = [name for name, v in ds.data_vars.items() if "y" in v.dims and "x" in v.dims]
     if wkt is not None or transform is not None:
         ds = ds.assign_coords(spatial_ref=xr.Variable((), np.int32(0), grid_mapping_attrs(wkt, transform)))
@@ -501,7 +467,7 @@ def open_product(path: str | os.PathLike, *, chunks: Mapping[str, int] | str | N
         ds = xr.open_dataset(path, engine="netcdf4", chunks={} if chunks is None else chunks, decode_coords="all")
     except Exception as exc:  # netCDF4/HDF5 raise assorted types
         raise StackReadError(f"cannot read product {path}: {exc}; is it a NetCDF file written by unmix?") from None
-    wkt, transform = _georef_of(ds)
+    wkt, transform = georef_of(ds)
     for name, var in ds.data_vars.items():
         if "y" in var.dims and "x" in var.dims:
             if wkt is not None:
@@ -591,7 +557,7 @@ def write_cog(
             descriptions = [str(v) for v in values]
     else:
         descriptions = [f"{lead} {i + 1}" for i in range(da.shape[0])]
-    wkt, transform = _georef_of(da)
+    wkt, transform = georef_of(da)
     n, height, width = (int(s) for s in da.shape)
     profile = {
         "driver": "GTiff",

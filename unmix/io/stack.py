@@ -841,7 +841,7 @@ def _dask_from_readers(readers: list[_DateReader], n_bands: int, ychunks: tuple,
 def _open_netcdf_stack(
     path: Path, *, sensor: Any, band_names: Any, scale: Any, offset: Any, qa: Any, qa_bits: tuple, chunks: Any
 ) -> xr.DataArray:
-    from .products import _georef_of
+    from ..cube.georef import georef_of
 
     override = scale is not None or offset is not None
     try:
@@ -912,7 +912,7 @@ def _open_netcdf_stack(
     if not np.issubdtype(cube["time"].dtype, np.datetime64):
         raise InputError(f"the time coordinate of {path} is not a date; store it with CF units 'days since ...'")
     cube = cube.sortby("time")
-    wkt, transform = _georef_of(ds)
+    wkt, transform = georef_of(ds)
     height, width = cube.sizes["y"], cube.sizes["x"]
     enc = ds[var_name].encoding.get("chunksizes")
     block = (enc[list(ds[var_name].dims).index("y")], enc[list(ds[var_name].dims).index("x")]) if enc else (height, width)

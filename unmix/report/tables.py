@@ -6,7 +6,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from ..cube.trends import pixel_area_m2
+from ..cube.georef import pixel_area_m2
 
 __all__ = ["trajectory_area_table", "rule_area_table"]
 
