@@ -61,6 +61,7 @@ from ..errors import (
     StackReadError,
     UnknownNameError,
 )
+from ._stack_numba import decode_bands
 from .products import grid_mapping_attrs, xy_attrs
 
 __all__ = ["open_stack", "date_from_name", "read_dates_csv", "find_stack_files", "Resampling"]
@@ -392,12 +393,13 @@ class _DateReader:
         row0, row1, col0, col1 = window
         try:
             raw, mask = self._read(self.path, self.band_indexes, window, self.warp_resampling)
-            out = raw.astype("float32", copy=False) if raw.dtype == np.float32 else raw.astype("float32")
-            invalid = ~mask if mask is not None else np.zeros(out.shape[1:], bool)
-            for i, nd in enumerate(self.nodata):
-                band_invalid = invalid if nd is None or (isinstance(nd, float) and math.isnan(nd)) else invalid | (raw[i] == nd)
-                out[i] = out[i] * np.float32(self.scales[i]) + np.float32(self.offsets[i])
-                out[i][band_invalid] = np.nan
+            out = np.empty(raw.shape, dtype=np.float32)
+            has_nd = np.array([nd is not None and not (isinstance(nd, float) and math.isnan(nd)) for nd in self.nodata])
+            nd_values = np.array([nd if ok else 0 for nd, ok in zip(self.nodata, has_nd)], dtype=np.float64)
+            decode_bands(raw, np.asarray(self.scales, np.float64), np.asarray(self.offsets, np.float64),
+                         nd_values, has_nd, out)
+            if mask is not None:
+                out[:, ~mask] = np.nan
             if self.qa_path is not None:
                 qa_raw, qa_valid = self._read(self.qa_path, (self.qa_band,), window, "nearest")
                 qa = qa_raw[0]
