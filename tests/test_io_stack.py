@@ -252,3 +252,67 @@ def test_netcdf_cube(make_netcdf_stack):
     assert tuple(cube.attrs["transform"]) == pytest.approx(tuple(info.transform)[:6])
     with pytest.raises(BandMismatchError):
         open_stack(info.files[0], band_names=BANDS[:4])
+
+
+# --------------------------------------------------------------------------------------------------
+# decoding into band-last chunks
+
+
+def _decode_reference(raw, scales, offsets, nodata):
+    """numpy reference: float32(raw) * float32(scale) + float32(offset), NaN where raw == nodata (per band)."""
+    out = raw.astype(np.float32) * np.float32(scales)[:, None, None] + np.float32(offsets)[:, None, None]
+    for b, nd in enumerate(nodata):
+        if nd is not None:
+            out[b][raw[b] == nd] = np.nan
+    return out
+
+
+@pytest.mark.parametrize("dtype", ["int16", "uint16", "float32"])
+@pytest.mark.parametrize("uniform", [True, False])
+def test_decode_bands_last_equals_numpy_decode(dtype, uniform):
+    from unmix.io._stack_numba import decode_bands, decode_bands_last
+
+    rng = np.random.default_rng(3)
+    for case in range(4):
+        nb, ny, nx = 1 + case * 2, 5 + case, 7
+        raw = rng.integers(0, 12000, size=(nb, ny, nx)).astype(dtype)
+        nd_value = 0 if dtype != "float32" else -1.0
+        raw[rng.random(raw.shape) < 0.1] = nd_value
+        if uniform:
+            scales, offsets = [1e-4] * nb, [0.0] * nb
+            nodata = [nd_value if case % 2 == 0 else None] * nb
+        else:
+            scales = list(rng.uniform(1e-5, 1e-3, nb))
+            offsets = list(rng.uniform(-0.2, 0.1, nb))
+            nodata = [nd_value if b % 2 == 0 else None for b in range(nb)]
+        has = np.array([nd is not None for nd in nodata])
+        nd_arr = np.array([0.0 if nd is None else nd for nd in nodata])
+        ref = _decode_reference(raw, scales, offsets, nodata)
+        band_last = np.empty((ny, nx, nb), np.float32)
+        decode_bands_last(np.ascontiguousarray(np.moveaxis(raw, 0, -1)), np.array(scales), np.array(offsets),
+                          nd_arr, has, band_last)
+        np.testing.assert_array_equal(np.moveaxis(band_last, -1, 0), ref)  # bit for bit, NaN at the same places
+        band_first = np.empty((nb, ny, nx), np.float32)
+        decode_bands(raw, np.array(scales), np.array(offsets), nd_arr, has, band_first)
+        np.testing.assert_array_equal(band_first, ref)
+
+
+@pytest.mark.parametrize("interleave", ["pixel", "band"])
+def test_chunks_are_band_last_views_with_values_as_read_by_rasterio(tmp_path, interleave):
+    rng = np.random.default_rng(5)
+    data = rng.integers(-500, 11000, size=(len(BANDS), 40, 36)).astype(np.int16)
+    data[:, 3, 4] = NODATA
+    data[2, 10, 11] = NODATA
+    path = tmp_path / "scene_2020-01-01.tif"
+    with rasterio.open(path, "w", driver="GTiff", width=36, height=40, count=len(BANDS), dtype="int16", crs=CRS,
+                       transform=Affine(30, 0, 500000, 0, -30, 4100000), nodata=NODATA, tiled=True,
+                       blockxsize=16, blockysize=16, compress="deflate", interleave=interleave) as dst:
+        dst.write(data)
+    cube = open_stack([path], band_names=BANDS, scale=1e-4, chunks=32)
+    chunk = cube.data.to_delayed()[0, 0, 0, 0].compute(scheduler="sync")  # the chunk as a task returns it
+    # band-last memory: the kernel can take np.moveaxis(chunk, 1, -1) without a copy
+    assert np.moveaxis(chunk, 1, -1).flags.c_contiguous
+    with rasterio.open(path) as src:  # reference: rasterio's own read and numpy decoding
+        raw = src.read()
+    ref = _decode_reference(raw, [1e-4] * len(BANDS), [0.0] * len(BANDS), [NODATA] * len(BANDS))
+    np.testing.assert_array_equal(cube.values[0], ref)

@@ -1,7 +1,10 @@
 """Endmember fractions over a lazy (time, band, y, x) reflectance cube.
 
-The per-pixel solver :func:`unmix.solvers.estimate_fractions` is mapped over the cube's dask chunks
-with :func:`xarray.apply_ufunc` (band moved last as the core dimension). Nothing is computed here:
+The per-pixel solver :func:`unmix.solvers.estimate_fractions` is mapped over the cube's dask chunks,
+one task per chunk, with the band axis moved last as a view (chunks read from GeoTIFFs are views of
+band-last buffers, so no chunk is copied on its way to the solver); the same task marks the pixels
+with valid fractions for ``valid_count``. In-memory cubes go through :func:`xarray.apply_ufunc` (band
+as the core dimension); both paths give identical values. Nothing is computed here:
 the result stays lazy until a writer (:func:`unmix.io.products.write_netcdf`) or ``.compute()`` runs
 it, chunk by chunk. No paths are opened and nothing is printed.
 """
@@ -148,6 +151,8 @@ def unmix_cube(
     if cube.chunks is not None and len(cube.chunks[1]) > 1:
         cube = cube.chunk({"band": -1})
 
+    if cube.chunks is not None:
+        return _finish(cube, *_unmix_dask(cube, M, con.value, w, names), M, con, w, names, band_labels)
     fractions, rmse = xr.apply_ufunc(
         _unmix_block,
         cube,
@@ -160,18 +165,76 @@ def unmix_cube(
         keep_attrs=False,
     )
     fractions = fractions.transpose("time", "endmember", "y", "x").assign_coords(endmember=list(names))
-    valid = fractions.notnull().all("endmember")  # (time, y, x) bool
-    if valid.chunks is not None:
-        import dask.array as dsa
+    valid_count = fractions.notnull().all("endmember").sum("time").astype(np.int32)
+    return _finish(cube, fractions, rmse, valid_count, M, con, w, names, band_labels)
 
-        # Small partial sums combined pairwise: the default tree reduction keeps up to 16 int64
-        # partial maps per spatial chunk alive, which made memory grow with the number of dates.
-        counts = dsa.sum(valid.data.astype(np.int16), axis=0, dtype=np.int16, split_every=2).astype(np.int32)
-        valid_count = xr.DataArray(counts, dims=("y", "x"), coords={k: v for k, v in valid.coords.items()
-                                                                    if "time" not in v.dims})
-    else:
-        valid_count = valid.sum("time").astype(np.int32)
 
+def _unmix_chunk(block: np.ndarray, endmembers: np.ndarray, constraint: str, weights: Any, names: tuple) -> tuple:
+    """One (time, band, y, x) chunk -> fractions (time, endmember, y, x), RMSE and valid (time, y, x).
+
+    The band axis is moved last as a view: chunks read from GeoTIFFs are views of band-last buffers,
+    so the kernel gets them without a copy. Outputs are views of the kernel's band-last results.
+    """
+    fractions, rmse = _unmix_block(np.moveaxis(block, 1, -1), endmembers, constraint, weights, names)
+    valid = np.isfinite(fractions[..., 0])
+    for j in range(1, fractions.shape[-1]):
+        valid &= np.isfinite(fractions[..., j])
+    return np.moveaxis(fractions, -1, 1), rmse, valid
+
+
+def _unmix_dask(cube: xr.DataArray, M: np.ndarray, constraint: str, w: Any, names: tuple) -> tuple:
+    """Lazy fractions, RMSE and valid-date count of a dask-backed (time, band, y, x) cube.
+
+    One task per chunk runs the kernel (fused with the chunk's read by dask's graph optimisation)
+    and returns three arrays; three light layers pick them out. Equivalent to ``apply_ufunc`` with
+    band as the core dim, without its transposed copy of every chunk.
+    """
+    import operator
+
+    import dask.array as dsa
+    from dask.base import tokenize
+    from dask.highlevelgraph import HighLevelGraph
+
+    data = cube.data
+    p = len(names)
+    token = tokenize(data, M, constraint, w, names)
+    name = "unmix-" + token
+    both = dsa.blockwise(
+        _unmix_chunk, "tbyx", data, "tbyx", name=name, dtype=np.float32,
+        meta=np.empty((0, 0, 0, 0), np.float32), endmembers=M, constraint=constraint, weights=w, names=names,
+    )  # fmt: skip
+    keys = [k for k in both.__dask_keys__() for k in _flatten_keys(k)]
+    tc, _, yc, xc = data.chunks
+
+    def pick(index: int, label: str, chunks: tuple, dtype: Any, drop_band: bool) -> Any:
+        out_name = f"unmix-{label}-{token}"
+        layer = {(out_name, k[1], *(() if drop_band else (0,)), k[3], k[4]): (operator.getitem, k, index)
+                 for k in keys}
+        graph = HighLevelGraph.from_collections(out_name, layer, dependencies=[both])
+        ndim = 3 if drop_band else 4
+        return dsa.Array(graph, out_name, chunks, dtype=dtype, meta=np.empty((0,) * ndim, dtype))
+
+    frac = pick(0, "fractions", (tc, (p,), yc, xc), np.float32, False)
+    rmse = pick(1, "rmse", (tc, yc, xc), np.float32, True)
+    valid = pick(2, "valid", (tc, yc, xc), np.bool_, True)
+    coords = {k: v for k, v in cube.coords.items() if "band" not in v.dims}
+    fractions = xr.DataArray(frac, dims=("time", "endmember", "y", "x"), coords=coords).assign_coords(
+        endmember=list(names))
+    rmse_da = xr.DataArray(rmse, dims=("time", "y", "x"), coords=coords)
+    # Small partial sums combined pairwise: the default tree reduction keeps up to 16 int64
+    # partial maps per spatial chunk alive, which made memory grow with the number of dates.
+    counts = dsa.sum(valid.astype(np.int16), axis=0, dtype=np.int16, split_every=2).astype(np.int32)
+    valid_count = xr.DataArray(counts, dims=("y", "x"), coords={k: v for k, v in coords.items() if "time" not in v.dims})
+    return fractions, rmse_da, valid_count
+
+
+def _flatten_keys(k: Any) -> list:
+    return [x for sub in k for x in _flatten_keys(sub)] if isinstance(k, list) else [k]
+
+
+def _finish(cube: xr.DataArray, fractions: xr.DataArray, rmse: xr.DataArray, valid_count: xr.DataArray,
+            M: np.ndarray, con: Constraint, w: Any, names: tuple, band_labels: Any) -> xr.Dataset:
+    """Attributes, spectra and georeferencing around the computed (lazy) variables."""
     fractions.attrs = {"long_name": "endmember fraction (share of the pixel)", "units": "1",
                        "valid_min": 0.0, "valid_max": 1.0} if con is Constraint.FCLS else \
         {"long_name": "endmember fraction (share of the pixel)", "units": "1"}

@@ -61,7 +61,7 @@ from ..errors import (
     StackReadError,
     UnknownNameError,
 )
-from ._stack_numba import decode_bands
+from ._stack_numba import decode_bands, decode_bands_last
 from .products import grid_mapping_attrs, xy_attrs
 
 __all__ = ["open_stack", "date_from_name", "read_dates_csv", "find_stack_files", "Resampling"]
@@ -392,12 +392,17 @@ class _DateReader:
     def __call__(self, window: tuple[int, int, int, int]) -> np.ndarray:
         row0, row1, col0, col1 = window
         try:
-            raw, mask = self._read(self.path, self.band_indexes, window, self.warp_resampling)
-            out = np.empty(raw.shape, dtype=np.float32)
+            raw, mask = self._read(self.path, self.band_indexes, window, self.warp_resampling, band_last=True)
+            # (band, y, x) views of band-last buffers: the values of a pixel lie side by side, as the
+            # per-pixel solvers read them (and as pixel-interleaved GeoTIFFs store them)
+            out = np.empty(raw.shape[1:] + raw.shape[:1], dtype=np.float32).transpose(2, 0, 1)
             has_nd = np.array([nd is not None and not (isinstance(nd, float) and math.isnan(nd)) for nd in self.nodata])
             nd_values = np.array([nd if ok else 0 for nd, ok in zip(self.nodata, has_nd)], dtype=np.float64)
-            decode_bands(raw, np.asarray(self.scales, np.float64), np.asarray(self.offsets, np.float64),
-                         nd_values, has_nd, out)
+            scales, offsets = np.asarray(self.scales, np.float64), np.asarray(self.offsets, np.float64)
+            if raw.strides[0] < raw.strides[2]:  # band-last buffer, as read without warping
+                decode_bands_last(raw.transpose(1, 2, 0), scales, offsets, nd_values, has_nd, out.transpose(1, 2, 0))
+            else:
+                decode_bands(raw, scales, offsets, nd_values, has_nd, out)
             if mask is not None:
                 out[:, ~mask] = np.nan
             if self.qa_path is not None:
@@ -428,7 +433,9 @@ class _DateReader:
     def warp_resampling(self) -> str:
         return self.warp[4] if self.warp is not None else "nearest"
 
-    def _read(self, path: str, indexes: tuple, window: tuple, resampling: str) -> tuple[np.ndarray, np.ndarray | None]:
+    def _read(self, path: str, indexes: tuple, window: tuple, resampling: str,
+              band_last: bool = False) -> tuple[np.ndarray, np.ndarray | None]:
+        """Stored values (band, y, x) of a window; with ``band_last`` a view of a (y, x, band) buffer."""
         import rasterio
         from rasterio.windows import Window
 
@@ -436,7 +443,11 @@ class _DateReader:
         win = Window(col0, row0, col1 - col0, row1 - row0)
         with rasterio.open(path) as src:
             if self.warp is None:
-                return src.read(list(indexes), window=win), None
+                if not band_last:
+                    return src.read(list(indexes), window=win), None
+                # GDAL fills the strided buffer directly (no copy afterwards)
+                buf = np.empty((row1 - row0, col1 - col0, len(indexes)), dtype=src.dtypes[indexes[0] - 1])
+                return src.read(list(indexes), window=win, out=buf.transpose(2, 0, 1)), None
             from affine import Affine
             from rasterio.crs import CRS
             from rasterio.enums import Resampling as RioResampling
