@@ -6,6 +6,7 @@ Each subcommand lives in its own module and is added here. Errors raised on purp
 
 from __future__ import annotations
 
+import importlib
 import sys
 
 import click
@@ -14,7 +15,41 @@ from .. import __version__
 from ..errors import UnmixError
 
 
-@click.group(context_settings={"help_option_names": ["-h", "--help"], "max_content_width": 100})
+class _LazyGroup(click.Group):
+    """A command group that imports a subcommand's module only when that subcommand is used.
+
+    Running ``unmix fractions`` then does not import the trend, extraction or report modules, which
+    keeps start-up short; ``unmix --help`` still lists (and so imports) every command.
+    """
+
+    def __init__(self, *args, lazy_commands: dict[str, str], **kwargs):
+        super().__init__(*args, **kwargs)
+        self._lazy = dict(lazy_commands)
+
+    def list_commands(self, ctx: click.Context) -> list[str]:
+        return sorted({*super().list_commands(ctx), *self._lazy})
+
+    def get_command(self, ctx: click.Context, name: str) -> click.Command | None:
+        if name in self._lazy and name not in self.commands:
+            module_name, attribute = self._lazy[name].split(":")
+            self.add_command(getattr(importlib.import_module(module_name, __package__), attribute), name)
+        return super().get_command(ctx, name)
+
+
+# Subcommands register here: name -> "module:command" (one module per command; keep alphabetical).
+_COMMANDS = {
+    "demo": ".demo:demo",
+    "endmembers": ".endmembers:endmembers",
+    "fractions": ".fractions:fractions",
+    "library": ".library:library",
+    "report": ".report:report",
+    "sensors": ".sensors:sensors",
+    "trends": ".trends:trends",
+}
+
+
+@click.group(cls=_LazyGroup, lazy_commands=_COMMANDS,
+             context_settings={"help_option_names": ["-h", "--help"], "max_content_width": 100})
 @click.version_option(__version__, prog_name="unmix")
 def cli() -> None:
     """Sub-pixel land-cover fractions from image time series, and where cover is slowly changing.
@@ -22,23 +57,6 @@ def cli() -> None:
     Fractions and trends are model estimates: validate them in the field before they inform a
     decision, and defer to local regulations and licensed practice.
     """
-
-
-# Subcommands register here, one line each (keep alphabetical).
-from .demo import demo as _demo_command  # noqa: E402
-cli.add_command(_demo_command)
-from .endmembers import endmembers as _endmembers_command  # noqa: E402
-cli.add_command(_endmembers_command)
-from .fractions import fractions as _fractions_command  # noqa: E402
-cli.add_command(_fractions_command)
-from .library import library as _library_command  # noqa: E402
-cli.add_command(_library_command)
-from .report import report as _report_command  # noqa: E402
-cli.add_command(_report_command)
-from .sensors import sensors as _sensors_command  # noqa: E402
-cli.add_command(_sensors_command)
-from .trends import trends as _trends_command  # noqa: E402
-cli.add_command(_trends_command)
 
 
 def main(argv: list[str] | None = None) -> int:
