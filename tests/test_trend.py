@@ -357,6 +357,49 @@ def test_iterative_prewhiten_matches_slow_reference():
     assert 100 <= whitened < y.shape[0]  # both branches (whitened and not) are exercised
 
 
+def test_iterative_prewhiten_long_and_cycling_series_match_slow_reference():
+    # series that take many rounds, most of them caught in a two-round cycle of the Sen median
+    # until the 20-round cap (the kernel jumps to the last round once a cycle repeats): rho, the
+    # slope of the last round and the whitened series against the slow reference above
+    # (statsmodels acf, scipy theilslopes), which runs every round
+    rng = np.random.default_rng(31)
+    n = 40
+    y = 0.004 * rng.normal(size=(4000, 1)) * np.arange(n) + 0.03 * _ar1(rng, 4000, n, 0.4)
+    y = np.round(y, 3)  # quantised like stored fractions: the median jumps between few values
+    res = iterative_prewhiten(y)
+    rows = np.flatnonzero(res.iterations >= 8)[:40]
+    assert (res.iterations[rows] == 20).sum() >= 10  # the cycle jump is exercised
+    for r in rows:
+        rho, b, w = _iterative_prewhiten_reference(y[r])
+        assert res.rho[r] == pytest.approx(rho, rel=1e-7, abs=1e-12), r
+        assert res.slope[r] == pytest.approx(b, rel=1e-7, abs=1e-12), r
+        np.testing.assert_allclose(res.series[r][: w.size], w, rtol=1e-7, atol=1e-9,
+                                   err_msg=str(r))
+
+
+def test_mann_kendall_iterative_prewhiten_runs_on_the_whitened_series():
+    # the test skips the last Sen median when a count shows it within the convergence
+    # tolerance; the series it tests must still be exactly the one iterative_prewhiten returns:
+    # S and Var(S) against pymannkendall.original_test on that series (ties at the rounding
+    # tolerance skipped, as above)
+    rng = np.random.default_rng(37)
+    n = 40
+    y = 0.004 * rng.normal(size=(300, 1)) * np.arange(n) + 0.03 * _ar1(rng, 300, n, 0.5)
+    res = mann_kendall(y, correction="iterative-prewhiten")
+    pw = iterative_prewhiten(y)
+    compared = 0
+    for r in range(y.shape[0]):
+        w = pw.series[r][~np.isnan(pw.series[r])]
+        diff = np.abs(w[:, None] - w[None, :])
+        if pw.rho[r] > 0 and ((diff > 0) & (diff < 1e-9 * np.abs(w).max())).any():
+            continue
+        ref = pmk.original_test(w)
+        assert res.s[r] == ref.s, r
+        assert res.var_s[r] == pytest.approx(ref.var_s, rel=1e-12), r
+        compared += 1
+    assert compared >= 250
+
+
 def test_iterative_prewhiten_autocorrelation_is_bias_corrected_acf_of_detrended_series():
     # at convergence the final rho is the bias-corrected lag-1 autocorrelation of the series
     # detrended by (within the 1 % convergence tolerance) the final slope: statsmodels acf
@@ -481,6 +524,40 @@ def test_private_median_band_matches_numpy_median(m, seed, levels):
     a = rng.integers(0, levels, m).astype(float) if levels else rng.standard_normal(m)
     for b in (a, np.sort(a), np.sort(a)[::-1].copy()):
         assert _median_band(b.copy(), m, np.empty(m)) == np.median(b)
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.integers(127, 900), st.integers(0, 2**32 - 1), st.sampled_from([2, 10, 1000, 0]),
+       st.floats(-3, 3), st.floats(0, 3))
+def test_private_median_band_hint_matches_numpy_median(m, seed, levels, centre, half):
+    # the median with a band hint (from a previous median; it may miss, be too wide or NaN)
+    # against numpy.median
+    from unmix._trend_numba import _median_band_hint
+
+    rng = np.random.default_rng(seed)
+    a = rng.integers(0, levels, m).astype(float) if levels else rng.standard_normal(m)
+    if levels:
+        centre, half = (centre + 3) * levels / 6, half * levels / 6
+    for lo, hi in ((centre - half, centre + half), (np.nan, np.nan)):
+        med, _, _ = _median_band_hint(a.copy(), m, np.empty(m), lo, hi)
+        assert med == np.median(a)
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.integers(1, 900), st.integers(0, 2**32 - 1), st.sampled_from([3, 1000, 0]),
+       st.floats(-2, 2), st.floats(0, 2))
+def test_private_median_within_matches_order_statistics(m, seed, levels, centre, half):
+    # True exactly when both middle order statistics (numpy's sort) lie in [lo, hi]
+    from unmix._trend_numba import _median_within
+
+    rng = np.random.default_rng(seed)
+    a = rng.integers(0, levels, m).astype(float) if levels else rng.standard_normal(m)
+    lo, hi = centre - half, centre + half
+    srt = np.sort(a)
+    mid = srt[[(m - 1) // 2, m // 2]]
+    assert _median_within(a, m, lo, hi) == bool(((mid >= lo) & (mid <= hi)).all())
+    if _median_within(a, m, lo, hi):
+        assert lo <= np.median(a) <= hi
 
 
 def test_mann_kendall_bad_arguments():

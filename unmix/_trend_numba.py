@@ -6,7 +6,10 @@ value and writes one value per series into preallocated outputs. The ``*_batch``
 (allocating per series cost more than the tests themselves); the Sen slope is split in two
 ``nogil`` block kernels around numpy's row sort. The Sen medians inside the corrections (one
 for trend-free pre-whitening and Hamed-Rao, one per round of iterative pre-whitening) use a
-sampled-band quickselect (:func:`_median_band`). Inner loops over pairs are written branch-free
+sampled-band quickselect (:func:`_median_band`); the rounds of iterative pre-whitening try the
+band of the previous round's median first (:func:`_median_band_hint`), detect two-round cycles and,
+inside the test, settle the last round by a count (see :func:`_iterative_prewhiten`); measured
+together about 30 % less time for that correction. Inner loops over pairs are written branch-free
 so that they vectorise. Validation, dtype handling and reshaping live in
 :mod:`unmix.trend`; nothing here raises for bad data, it writes NaN instead.
 """
@@ -199,6 +202,7 @@ def _median_inplace(a, m, tmp):
 
 
 _SAMPLE = 63  # sample size of the pivot estimate in _median_band
+_HINT_SHRINK = 0.12  # half-width of the next hint / width of the sampled band (tuned)
 _SAMPLE_HALF_WIDTH = 8  # band = sample ranks median +- 8 (about +-2 sd of the sample median)
 
 
@@ -215,17 +219,13 @@ def _median_band(a, m, tmp):
     statistic of the same set. About twice as fast as quickselect on all of a for the ~800 slopes
     of a 40-step series.
     """
-    if m <= 2 * _SAMPLE:  # small: plain quickselect (and tmp[s:] below must hold s values)
-        return _median_inplace(a, m, tmp)
-    s = _SAMPLE
-    for i in range(s):  # strided sample; its two order statistics by quickselect
-        tmp[i] = a[(2 * i + 1) * m // (2 * s)]
-    q_lo = s // 2 - _SAMPLE_HALF_WIDTH
-    q_hi = s // 2 + _SAMPLE_HALF_WIDTH
-    _select(tmp, 0, s, q_lo, tmp[s:])
-    _select(tmp, q_lo + 1, s, q_hi, tmp[s:])
-    lo_v = tmp[q_lo]
-    hi_v = tmp[q_hi]
+    return _median_band_hint(a, m, tmp, np.nan, np.nan)[0]
+
+
+@njit(cache=True)
+def _median_in_band(a, m, tmp, lo_v, hi_v):
+    """Median of a[:m] from the values in [lo_v, hi_v] (copied to tmp, quickselect there); NaN
+    if the band does not hold both middle order statistics. Reorders tmp and a."""
     k = m // 2
     k_lo = k if m % 2 == 1 else k - 1
     below = 0
@@ -236,7 +236,7 @@ def _median_band(a, m, tmp):
         below += v < lo_v
         nb += (v >= lo_v) & (v <= hi_v)
     if below > k_lo or below + nb <= k:
-        return _median_inplace(a, m, tmp)
+        return np.nan
     # tmp[:nb] holds the band; a is free to serve as scratch
     kk = k - below
     _select(tmp, 0, nb, kk, a)
@@ -252,8 +252,49 @@ def _median_band(a, m, tmp):
 
 
 @njit(cache=True)
-def _sen_index_slope(x, m, buf, tmp):
-    """Median of (x_j - x_i) / (j - i) over i < j < m (series in consecutive steps)."""
+def _median_band_hint(a, m, tmp, hint_lo, hint_hi):
+    """(median of a[:m], band used) as :func:`_median_band`, trying the band [hint_lo, hint_hi]
+    first (the band of a previous, similar median; NaN for none). One branch-free counting pass
+    checks that the hint holds both middle order statistics and at most half of the values;
+    then the sample and its two selections are skipped. Same value either way. The band returned
+    for the next call is centred on this median: as wide as the hint after a hit, else
+    2 * _HINT_SHRINK times the sampled band (a narrower band copies and selects fewer values;
+    a miss costs only the counting pass)."""
+    if m <= 2 * _SAMPLE:  # small: plain quickselect (and tmp[s:] below must hold s values)
+        return _median_inplace(a, m, tmp), np.nan, np.nan
+    k = m // 2
+    k_lo = k if m % 2 == 1 else k - 1
+    if hint_lo <= hint_hi:  # False for NaN
+        below = 0
+        upto = 0
+        for i in range(m):
+            v = a[i]
+            below += v < hint_lo
+            upto += v <= hint_hi
+        if below <= k_lo and upto >= k + 1 and 2 * (upto - below) <= m:
+            med = _median_in_band(a, m, tmp, hint_lo, hint_hi)  # a hit, by the counts above
+            hw = 0.5 * (hint_hi - hint_lo)
+            return med, med - hw, med + hw
+    s = _SAMPLE
+    for i in range(s):  # strided sample; its two order statistics by quickselect
+        tmp[i] = a[(2 * i + 1) * m // (2 * s)]
+    q_lo = s // 2 - _SAMPLE_HALF_WIDTH
+    q_hi = s // 2 + _SAMPLE_HALF_WIDTH
+    _select(tmp, 0, s, q_lo, tmp[s:])
+    _select(tmp, q_lo + 1, s, q_hi, tmp[s:])
+    lo_v = tmp[q_lo]
+    hi_v = tmp[q_hi]
+    med = _median_in_band(a, m, tmp, lo_v, hi_v)
+    if math.isnan(med):
+        # the band missed the median (a few % of calls): quickselect on all values
+        return _median_inplace(a, m, tmp), np.nan, np.nan
+    hw = _HINT_SHRINK * (hi_v - lo_v)
+    return med, med - hw, med + hw
+
+
+@njit(cache=True)
+def _index_slopes(x, m, buf):
+    """buf[:c] = (x_j - x_i) / (j - i) over i < j < m (series in consecutive steps); returns c."""
     c = 0
     for i in range(m - 1):
         xi = x[i]
@@ -261,7 +302,29 @@ def _sen_index_slope(x, m, buf, tmp):
         for j in range(i + 1, m):
             buf[base + j] = (x[j] - xi) / (j - i)
         c += m - 1 - i
-    return _median_band(buf, c, tmp)
+    return c
+
+
+@njit(cache=True)
+def _sen_index_slope(x, m, buf, tmp):
+    """Median of (x_j - x_i) / (j - i) over i < j < m (series in consecutive steps)."""
+    return _median_band(buf, _index_slopes(x, m, buf), tmp)
+
+
+@njit(cache=True)
+def _median_within(a, m, lo, hi):
+    """True if the median of a[:m] (m >= 1) certainly lies in [lo, hi]: both middle order
+    statistics do (then so does their mean, also after rounding). One branch-free counting pass,
+    much cheaper than the median itself."""
+    k = m // 2
+    k_lo = k if m % 2 == 1 else k - 1
+    below = 0
+    upto = 0
+    for i in range(m):
+        v = a[i]
+        below += v < lo
+        upto += v <= hi
+    return below <= k_lo and upto >= k + 1
 
 
 @njit(cache=True)
@@ -303,7 +366,7 @@ def _acf1_sd(x, m):
 
 
 @njit(cache=True)
-def _iterative_prewhiten(x, m, w, d, buf, tmp):
+def _iterative_prewhiten(x, m, w, d, buf, tmp, exact_b):
     """Iterative pre-whitening of x[:m] (Zhang et al. 2000; Wang & Swail 2001).
 
     Starting from the Sen slope b of x (against the step index), repeat: remove the trend,
@@ -315,12 +378,27 @@ def _iterative_prewhiten(x, m, w, d, buf, tmp):
     rho = 0; series of fewer than 5 values are never whitened (the bias correction needs m > 4).
 
     Returns (rho, b, iterations); w[:m-1] holds the whitened series when rho > 0.
+
+    Shortcuts that leave rho, w and the round count unchanged (every decision is the same):
+
+    * a round whose rho equals the previous one exactly reuses the previous slope (same w);
+    * the new b enters the next round only through d = x - b t, so rho and b are a fixed-point
+      iteration b -> rho(b) -> b(rho). Once b of round t-1 equals b of round t-3 (exactly), the
+      states from round t-2 on repeat with period 2 and so do the convergence checks; rounds t-1
+      and t both failed, so no later round converges: jump to round IPW_MAX_ITER, whose state
+      is that of round t or t-1 by parity;
+    * with ``exact_b`` False (the test needs rho and w only), the last round does not compute
+      its Sen median when one counting pass shows the median within the convergence tolerance
+      of the previous b (with a 1e-9 relative margin for rounding): the round converges either
+      way. The returned b is then that previous b, within the tolerance of the final slope.
     """
-    b0 = _sen_index_slope(x, m, buf, tmp)
+    b0, h_lo, h_hi = _median_band_hint(buf, _index_slopes(x, m, buf), tmp, np.nan, np.nan)
     if m < 5:
         return 0.0, b0, 0
     b = b0
     rho = -1.0  # no previous value
+    b_1 = np.nan  # b of the round before last (b_1) and of the round before that (b_2)
+    b_2 = np.nan
     it = 0
     while it < IPW_MAX_ITER:
         it += 1
@@ -334,21 +412,42 @@ def _iterative_prewhiten(x, m, w, d, buf, tmp):
                 new_rho = 0.0
             elif new_rho > IPW_MAX_R:
                 new_rho = IPW_MAX_R
+        dr = abs(new_rho - rho)
+        rho_ok = dr <= IPW_TOL * abs(rho) or dr <= IPW_TOL_R_ABS
         if new_rho == 0.0:
             new_b = b0
+        elif new_rho == rho:
+            new_b = b  # w already holds the series whitened with this rho, b is its slope
         else:
             scale = 1.0 / (1.0 - new_rho)
             for k in range(m - 1):
                 w[k] = (x[k + 1] - new_rho * x[k]) * scale
-            new_b = _sen_index_slope(w, m - 1, buf, tmp)
+            c = _index_slopes(w, m - 1, buf)
+            if not exact_b and rho_ok:
+                tol = max(IPW_TOL * abs(b), IPW_TOL_B_ABS * sd / (m - 1.0)) * (1.0 - 1e-9)
+                if _median_within(buf, c, b - tol, b + tol):
+                    return new_rho, b, it
+            new_b, h_lo, h_hi = _median_band_hint(buf, c, tmp, h_lo, h_hi)
         db = abs(new_b - b)
-        dr = abs(new_rho - rho)
-        done = ((dr <= IPW_TOL * abs(rho) or dr <= IPW_TOL_R_ABS)
-                and (db <= IPW_TOL * abs(b) or db * (m - 1) <= IPW_TOL_B_ABS * sd))
+        done = rho_ok and (db <= IPW_TOL * abs(b) or db * (m - 1) <= IPW_TOL_B_ABS * sd)
+        if done:
+            rho = new_rho
+            b = new_b
+            break
+        if it >= 3 and b == b_2:
+            # period-2 cycle (see above): the final round repeats this one or the previous one
+            if (IPW_MAX_ITER - it) % 2 == 1:
+                new_rho = rho
+                new_b = b
+                if new_rho > 0.0:
+                    scale = 1.0 / (1.0 - new_rho)
+                    for k in range(m - 1):
+                        w[k] = (x[k + 1] - new_rho * x[k]) * scale
+            return new_rho, new_b, IPW_MAX_ITER
+        b_2 = b_1
+        b_1 = b
         rho = new_rho
         b = new_b
-        if done:
-            break
     # every round with rho > 0 rewrote w, so w holds the series whitened with the final rho
     return rho, b, it
 
@@ -378,7 +477,7 @@ def iterative_prewhiten_batch(y, n_chunks, series_out, rho_out, slope_out, iter_
                 slope_out[r] = np.nan
                 iter_out[r] = 0
                 continue
-            rho, b, it = _iterative_prewhiten(x, m, w, d, buf, tmp)
+            rho, b, it = _iterative_prewhiten(x, m, w, d, buf, tmp, True)
             rho_out[r] = rho
             slope_out[r] = b
             iter_out[r] = it
@@ -523,7 +622,7 @@ def _mann_kendall_one(r, y, tg, use_tg, correction, exact_cdf, x, g, w, sbuf, bu
         mm = m - 1
         ut = False
     elif correction == ITERATIVE_PREWHITEN:
-        rho, _, _ = _iterative_prewhiten(x, m, w, sbuf, buf, tmp)
+        rho, _, _ = _iterative_prewhiten(x, m, w, sbuf, buf, tmp, False)
         if rho > 0.0:
             ser = w
             mm = m - 1
