@@ -97,7 +97,7 @@ def reference_rate(product: Path, n_sample: int, seed: int = 0) -> tuple[float, 
     import scipy.stats
     import xarray as xr
 
-    from unmix.cube.trends import decimal_year
+    from unmix.dates import decimal_years as decimal_year
     from unmix.trajectory import effect_sizes, rank_tests
 
     with xr.open_dataset(product) as ds:
