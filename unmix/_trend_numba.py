@@ -329,21 +329,9 @@ def _median_within(a, m, lo, hi):
 
 @njit(cache=True)
 def _acf1(x, m):
-    """Lag-1 autocorrelation with the biased (1/n) autocovariance, as pymannkendall's ``__acf``."""
-    mean = 0.0
-    for i in range(m):
-        mean += x[i]
-    mean /= m
-    c0 = 0.0
-    c1 = 0.0
-    for i in range(m):
-        d = x[i] - mean
-        c0 += d * d
-        if i + 1 < m:
-            c1 += d * (x[i + 1] - mean)
-    if c0 == 0.0:
-        return 0.0  # a constant series carries no autocorrelation to remove
-    return c1 / c0
+    """Lag-1 autocorrelation with the biased (1/n) autocovariance, as pymannkendall's ``__acf``;
+    0 for a constant series (no autocorrelation to remove)."""
+    return _acf1_sd(x, m)[0]
 
 
 @njit(cache=True)
