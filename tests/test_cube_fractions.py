@@ -149,3 +149,21 @@ def test_local_cluster_equals_threaded_for_rmse_and_valid_count(stack):
         clustered = client.gather(client.compute([ds["rmse"].data, ds["valid_count"].data]))
     for a, b in zip(clustered, threaded):
         np.testing.assert_array_equal(a, b)
+
+
+@pytest.mark.parametrize("chunks", [None, (1, 7, 9)])
+def test_finite_mean_equals_numpy_nanmean(chunks):
+    # reference: numpy.nanmean in float64 (general-purpose library)
+    from unmix.cube.summary import finite_mean
+
+    rng = np.random.default_rng(3)
+    x = rng.random((3, 20, 25)).astype(np.float32)
+    x[rng.random(x.shape) < 0.2] = np.nan
+    x[0, 0, 0] = np.inf
+    da = xr.DataArray(x)
+    if chunks:
+        da = da.chunk(dict(zip(da.dims, chunks)))
+    finite = np.where(np.isfinite(x), x, np.nan).astype(np.float64)
+    assert float(finite_mean(da)) == pytest.approx(np.nanmean(finite), rel=1e-12)
+    empty = xr.DataArray(np.full((2, 3), np.nan, np.float32))
+    assert np.isnan(float(finite_mean(empty.chunk({"dim_0": 1}) if chunks else empty)))

@@ -8,7 +8,6 @@ optionally with one Cloud-Optimized GeoTIFF per endmember.
 from __future__ import annotations
 
 import json
-
 import shlex
 import time
 from pathlib import Path
@@ -137,11 +136,11 @@ def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str, band_
     nc_path = out / "fractions.nc"
     check_can_write(nc_path, overwrite)
 
+    from ..cube.fractions import unmix_cube
     from ..io.library import read_library
     from ..io.products import open_product, provenance_attrs, write_cog, write_netcdf
     from ..io.stack import open_stack
     from ..sensors import get_sensor
-    from ..cube.fractions import unmix_cube
 
     sensor_obj = get_sensor(sensor)
     bands = split_names(band_names, "--band-names")
@@ -192,17 +191,15 @@ def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str, band_
     }
     input_files = list(cube.attrs.get("input_files", ())) + [str(library)]
 
-    import dask.array as dsa
+    from ..cube.summary import finite_mean
 
-    rmse = ds["rmse"].data
     stats: dict[str, Any] = {}
     with dask_scheduler(workers=workers, scheduler=scheduler) as run:
 
         def compute(delayed: Any) -> None:
-            _, rmse_sum, rmse_n, valid = run.compute(
-                delayed, dsa.nansum(rmse.astype("float64")), dsa.isfinite(rmse).sum(), ds["valid_count"].data.sum()
-            )
-            stats.update(rmse_sum=float(rmse_sum), rmse_n=int(rmse_n), valid=int(valid))
+            # the summary rides along with the write: one pass over each chunk, no second read
+            _, mean_rmse, valid = run.compute(delayed, finite_mean(ds["rmse"]), ds["valid_count"].data.sum())
+            stats.update(mean_rmse=float(mean_rmse), valid=int(valid))
 
         write_netcdf(ds, nc_path, overwrite=overwrite, command=command, parameters=parameters,
                      input_files=input_files, title="unmix endmember fractions", complevel=compress_level,
@@ -221,7 +218,7 @@ def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str, band_
 
     n_t, n_y, n_x = cube.sizes["time"], cube.sizes["y"], cube.sizes["x"]
     pixels = n_y * n_x
-    mean_rmse = stats["rmse_sum"] / stats["rmse_n"] if stats.get("rmse_n") else float("nan")
+    mean_rmse = stats.get("mean_rmse", float("nan"))
     share = stats["valid"] / (pixels * n_t) if pixels * n_t else float("nan")
     extra = f" (+{len(cog_paths)} COG)" if cog_paths else ""
     echo_summary(

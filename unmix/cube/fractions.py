@@ -1,12 +1,12 @@
 """Endmember fractions over a lazy (time, band, y, x) reflectance cube.
 
-The per-pixel solver :func:`unmix.solvers.estimate_fractions` is mapped over the cube's dask chunks,
-one task per chunk, with the band axis moved last as a view (chunks read from GeoTIFFs are views of
-band-last buffers, so no chunk is copied on its way to the solver); the same task marks the pixels
-with valid fractions for ``valid_count``. In-memory cubes go through :func:`xarray.apply_ufunc` (band
-as the core dimension); both paths give identical values. Nothing is computed here:
-the result stays lazy until a writer (:func:`unmix.io.products.write_netcdf`) or ``.compute()`` runs
-it, chunk by chunk. No paths are opened and nothing is printed.
+The per-pixel solver :func:`unmix.solvers.estimate_fractions` is mapped over the cube with
+:func:`xarray.apply_ufunc` (``dask="parallelized"``, band as the core dimension): one task per dask
+chunk, which solves the chunk and also marks the pixels with valid fractions for ``valid_count``.
+Moving the band axis last is a view, and chunks read from GeoTIFFs are views of band-last buffers,
+so no chunk is copied on its way to the solver. Nothing is computed here: the result stays lazy until
+a writer (:func:`unmix.io.products.write_netcdf`) or ``.compute()`` runs it, chunk by chunk. No paths
+are opened and nothing is printed.
 """
 
 from __future__ import annotations
@@ -151,85 +151,60 @@ def unmix_cube(
     if cube.chunks is not None and len(cube.chunks[1]) > 1:
         cube = cube.chunk({"band": -1})
 
-    if cube.chunks is not None:
-        return _finish(cube, *_unmix_dask(cube, M, con.value, w, names), M, con, w, names, band_labels)
-    fractions, rmse = xr.apply_ufunc(
-        _unmix_block,
+    # One task per chunk: the kernel, and the valid-pixel mask made from its result while it is in
+    # cache. apply_ufunc moves the core dim (band) last as a view; chunks read from GeoTIFFs are
+    # views of band-last buffers, so the kernel receives them without a copy.
+    fractions, rmse, valid = xr.apply_ufunc(
+        _unmix_with_valid,
         cube,
         kwargs={"endmembers": M, "constraint": con.value, "weights": w, "names": names},
         input_core_dims=[["band"]],
-        output_core_dims=[["endmember"], []],
+        output_core_dims=[["endmember"], [], []],
         dask="parallelized",
-        output_dtypes=[np.float32, np.float32],
+        output_dtypes=[np.float32, np.float32, np.bool_],
         dask_gufunc_kwargs={"output_sizes": {"endmember": len(names)}},
         keep_attrs=False,
     )
     fractions = fractions.transpose("time", "endmember", "y", "x").assign_coords(endmember=list(names))
-    valid_count = fractions.notnull().all("endmember").sum("time").astype(np.int32)
-    return _finish(cube, fractions, rmse, valid_count, M, con, w, names, band_labels)
+    rmse = rmse.transpose("time", "y", "x")
+    valid = valid.transpose("time", "y", "x")
+    if valid.chunks is None:
+        counts = valid.sum("time", dtype=np.int32)
+    else:
+        # Small partial sums combined pairwise: the default tree reduction keeps up to 16 int64
+        # partial maps per spatial chunk alive, which made memory grow with the number of dates.
+        import dask.array as dsa
+
+        data = dsa.sum(valid.data.astype(np.int16), axis=0, dtype=np.int16, split_every=2).astype(np.int32)
+        counts = xr.DataArray(data, dims=("y", "x"), coords={k: v for k, v in valid.coords.items()
+                                                            if "time" not in v.dims})
+    return _finish(cube, fractions, rmse, counts.astype(np.int32), M, con, w, names, band_labels)
 
 
-def _unmix_chunk(block: np.ndarray, endmembers: np.ndarray, constraint: str, weights: Any, names: tuple) -> tuple:
-    """One (time, band, y, x) chunk -> fractions (time, endmember, y, x), RMSE and valid (time, y, x).
-
-    The band axis is moved last as a view: chunks read from GeoTIFFs are views of band-last buffers,
-    so the kernel gets them without a copy. Outputs are views of the kernel's band-last results.
-    """
-    fractions, rmse = _unmix_block(np.moveaxis(block, 1, -1), endmembers, constraint, weights, names)
-    valid = np.isfinite(fractions[..., 0])
-    for j in range(1, fractions.shape[-1]):
-        valid &= np.isfinite(fractions[..., j])
-    return np.moveaxis(fractions, -1, 1), rmse, valid
+def _unmix_with_valid(block: np.ndarray, endmembers: np.ndarray, constraint: str, weights: Any,
+                      names: tuple) -> tuple:
+    """(..., band) reflectance -> fractions (..., endmember), RMSE (...) and valid (...) of one chunk."""
+    fractions, rmse = _unmix_block(block, endmembers, constraint, weights, names)
+    return fractions, rmse, _all_finite(fractions)
 
 
-def _unmix_dask(cube: xr.DataArray, M: np.ndarray, constraint: str, w: Any, names: tuple) -> tuple:
-    """Lazy fractions, RMSE and valid-date count of a dask-backed (time, band, y, x) cube.
-
-    One task per chunk runs the kernel (fused with the chunk's read by dask's graph optimisation)
-    and returns three arrays; three light layers pick them out. Equivalent to ``apply_ufunc`` with
-    band as the core dim, without its transposed copy of every chunk.
-    """
-    import operator
-
-    import dask.array as dsa
-    from dask.base import tokenize
-    from dask.highlevelgraph import HighLevelGraph
-
-    data = cube.data
-    p = len(names)
-    token = tokenize(data, M, constraint, w, names)
-    name = "unmix-" + token
-    both = dsa.blockwise(
-        _unmix_chunk, "tbyx", data, "tbyx", name=name, dtype=np.float32,
-        meta=np.empty((0, 0, 0, 0), np.float32), endmembers=M, constraint=constraint, weights=w, names=names,
-    )  # fmt: skip
-    keys = [k for k in both.__dask_keys__() for k in _flatten_keys(k)]
-    tc, _, yc, xc = data.chunks
-
-    def pick(index: int, label: str, chunks: tuple, dtype: Any, drop_band: bool) -> Any:
-        out_name = f"unmix-{label}-{token}"
-        layer = {(out_name, k[1], *(() if drop_band else (0,)), k[3], k[4]): (operator.getitem, k, index)
-                 for k in keys}
-        graph = HighLevelGraph.from_collections(out_name, layer, dependencies=[both])
-        ndim = 3 if drop_band else 4
-        return dsa.Array(graph, out_name, chunks, dtype=dtype, meta=np.empty((0,) * ndim, dtype))
-
-    frac = pick(0, "fractions", (tc, (p,), yc, xc), np.float32, False)
-    rmse = pick(1, "rmse", (tc, yc, xc), np.float32, True)
-    valid = pick(2, "valid", (tc, yc, xc), np.bool_, True)
-    coords = {k: v for k, v in cube.coords.items() if "band" not in v.dims}
-    fractions = xr.DataArray(frac, dims=("time", "endmember", "y", "x"), coords=coords).assign_coords(
-        endmember=list(names))
-    rmse_da = xr.DataArray(rmse, dims=("time", "y", "x"), coords=coords)
-    # Small partial sums combined pairwise: the default tree reduction keeps up to 16 int64
-    # partial maps per spatial chunk alive, which made memory grow with the number of dates.
-    counts = dsa.sum(valid.astype(np.int16), axis=0, dtype=np.int16, split_every=2).astype(np.int32)
-    valid_count = xr.DataArray(counts, dims=("y", "x"), coords={k: v for k, v in coords.items() if "time" not in v.dims})
-    return fractions, rmse_da, valid_count
+@numba.njit(cache=True, nogil=True)
+def _all_finite_2d(values: np.ndarray, out: np.ndarray) -> None:  # pragma: no cover - compiled
+    for i in range(values.shape[0]):
+        ok = True
+        for j in range(values.shape[1]):
+            ok &= np.isfinite(values[i, j])
+        out[i] = ok
 
 
-def _flatten_keys(k: Any) -> list:
-    return [x for sub in k for x in _flatten_keys(sub)] if isinstance(k, list) else [k]
+def _all_finite(fractions: np.ndarray) -> np.ndarray:
+    """True where every endmember fraction of a pixel is finite: (..., endmember) -> (...) bool."""
+    out = np.empty(fractions.shape[:-1], dtype=np.bool_)
+    if fractions.flags.c_contiguous and fractions.size:
+        _all_finite_2d(fractions.reshape(-1, fractions.shape[-1]), out.reshape(-1))
+    else:
+        out[...] = np.isfinite(fractions).all(axis=-1)
+    return out
 
 
 def _finish(cube: xr.DataArray, fractions: xr.DataArray, rmse: xr.DataArray, valid_count: xr.DataArray,
@@ -265,3 +240,4 @@ def _finish(cube: xr.DataArray, fractions: xr.DataArray, rmse: xr.DataArray, val
         if key in cube.attrs:
             ds.attrs[key] = cube.attrs[key]
     return ds
+
