@@ -215,6 +215,30 @@ def test_monthly_seasonal_kendall_matches_pymannkendall():
     assert "seasonal Kendall (month)" in out.attrs["method"]
 
 
+def test_monthly_scheme_uses_the_seasonal_sen_slope():
+    # with seasons the slope is the seasonal Sen slope: pymannkendall.seasonal_sens_slope per cycle
+    # (calendar months are not exactly 1/12 year in decimal years: agreement to 1e-3), and exactly
+    # the kernel unmix.trend.seasonal_sen_slope on the decimal years of the dates
+    from unmix.dates import decimal_years
+    from unmix.trend import seasonal_sen_slope
+
+    ds = _cube(n_dates=48, ny=6, nx=6, freq="MS", seed=5)
+    ds["fractions"][:, :, 0, 0] = ds["fractions"][:, :, 1, 1]  # no NaN in the checked pixels
+    out = trend_cube(ds.chunk({"x": 2}), season_scheme="month").compute()
+    times = ds["time"].values
+    for e in range(2):
+        for yy, xx in ((1, 1), (2, 3), (0, 2)):
+            series = ds["fractions"].values[:, e, yy, xx].astype(np.float64)
+            ref = pymannkendall.seasonal_sens_slope(series, period=12)  # pymannkendall reference
+            assert out["slope"].values[e, yy, xx] == pytest.approx(ref.slope, rel=1e-3, abs=1e-6)
+            ours = seasonal_sen_slope(ds["fractions"].values[:, e, yy, xx], times.astype("datetime64[M]").astype(int) % 12,
+                                      decimal_years(times))
+            assert out["slope"].values[e, yy, xx] == ours.slope
+            assert out["slope_low"].values[e, yy, xx] == ours.low
+    assert "seasonal Sen slope" in out["slope"].attrs["long_name"]
+    assert "seasonal Kendall" in out["p_value"].attrs["long_name"]
+
+
 def test_bad_input_errors_name_the_problem():
     ds = _cube(ny=6, nx=6, n_dates=12)
     with pytest.raises(InputError, match="no 'fractions' variable"):

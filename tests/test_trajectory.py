@@ -18,7 +18,6 @@ from hypothesis import strategies as st
 
 from unmix.errors import InputError, LibraryFormatError, ShapeError, UnknownNameError
 from unmix.io.rules import read_rules
-from unmix.trend import DEFAULT_CORRECTION, MannKendallCorrection
 from unmix.trajectory import (
     FLAG_MEANINGS,
     FLAG_VALUES,
@@ -30,6 +29,7 @@ from unmix.trajectory import (
     pixel_area,
     rule_area,
 )
+from unmix.trend import DEFAULT_CORRECTION, MannKendallCorrection
 
 T = Trajectory
 N_DATES = 40
@@ -215,6 +215,26 @@ def test_small_step_below_min_step_is_not_abrupt():
     assert r.trajectory[0] != T.ABRUPT_DECREASE
     r2 = classify_trajectories(y[None], t, min_step=0.02)
     assert r2.trajectory[0] == T.ABRUPT_DECREASE
+
+
+def test_seasonal_labels_use_the_seasonal_sen_slope():
+    # with season labels the slope is the seasonal Sen slope (Hirsch et al. 1982), checked against
+    # pymannkendall.seasonal_sens_slope: monthly steps in decimal years make one cycle one year.
+    # A sawtooth season (slow green-up, sudden drop) misleads the plain Sen slope.
+    import pymannkendall as pmk
+
+    rng = np.random.default_rng(11)
+    n = 42
+    t = 2014 + np.arange(n) / 12
+    month = np.arange(n) % 12
+    y = 0.4 + 0.2 * month / 11 - 0.015 * (t - 2014) + rng.normal(0, 0.005, (6, n))
+    r = classify_trajectories(y, t, season=month)
+    for k in range(6):
+        ref = pmk.seasonal_sens_slope(y[k], period=12)
+        assert r.slope[k] == pytest.approx(ref.slope, rel=1e-9)
+    assert (r.trajectory == T.GRADUAL_DECREASE).all()
+    plain = classify_trajectories(y, t)
+    assert (plain.slope > r.slope).all()  # the season biases the plain Sen slope upwards
 
 
 def test_bad_arguments_name_the_parameter():

@@ -28,6 +28,7 @@ from unmix.trend import (
     mann_kendall,
     pettitt,
     seasonal_kendall,
+    seasonal_sen_slope,
     sen_slope,
 )
 
@@ -503,7 +504,7 @@ def test_iterative_prewhiten_exactly_linear_series_is_not_whitened():
 @given(st.lists(st.integers(0, 6), min_size=1, max_size=80), st.data())
 def test_private_select_matches_sort(vals, data):
     # the quickselect behind the Sen medians of the corrections, against numpy's sort
-    from unmix._trend_numba import _select
+    from unmix.trend._median_numba import _select
 
     a = np.asarray(vals, float)
     k = data.draw(st.integers(0, a.size - 1))
@@ -518,7 +519,7 @@ def test_private_select_matches_sort(vals, data):
 def test_private_median_band_matches_numpy_median(m, seed, levels):
     # the sampled-band median behind the Sen slopes of the corrections, against numpy.median;
     # few distinct levels (many ties), sorted and reversed inputs exercise the fallback path
-    from unmix._trend_numba import _median_band
+    from unmix.trend._median_numba import _median_band
 
     rng = np.random.default_rng(seed)
     a = rng.integers(0, levels, m).astype(float) if levels else rng.standard_normal(m)
@@ -532,7 +533,7 @@ def test_private_median_band_matches_numpy_median(m, seed, levels):
 def test_private_median_band_hint_matches_numpy_median(m, seed, levels, centre, half):
     # the median with a band hint (from a previous median; it may miss, be too wide or NaN)
     # against numpy.median
-    from unmix._trend_numba import _median_band_hint
+    from unmix.trend._median_numba import _median_band_hint
 
     rng = np.random.default_rng(seed)
     a = rng.integers(0, levels, m).astype(float) if levels else rng.standard_normal(m)
@@ -547,16 +548,19 @@ def test_private_median_band_hint_matches_numpy_median(m, seed, levels, centre, 
 @given(st.integers(1, 900), st.integers(0, 2**32 - 1), st.sampled_from([3, 1000, 0]),
        st.floats(-2, 2), st.floats(0, 2))
 def test_private_median_within_matches_order_statistics(m, seed, levels, centre, half):
-    # True exactly when both middle order statistics (numpy's sort) lie in [lo, hi]
-    from unmix._trend_numba import _median_within
+    # True exactly when both middle order statistics (numpy's sort) lie in [lo, hi]; with the
+    # number of values in the band
+    from unmix.trend._median_numba import _median_within
 
     rng = np.random.default_rng(seed)
     a = rng.integers(0, levels, m).astype(float) if levels else rng.standard_normal(m)
     lo, hi = centre - half, centre + half
     srt = np.sort(a)
     mid = srt[[(m - 1) // 2, m // 2]]
-    assert _median_within(a, m, lo, hi) == bool(((mid >= lo) & (mid <= hi)).all())
-    if _median_within(a, m, lo, hi):
+    within, n_band = _median_within(a, m, lo, hi)
+    assert within == bool(((mid >= lo) & (mid <= hi)).all())
+    assert n_band == np.count_nonzero((a >= lo) & (a <= hi))  # values in the band, by numpy
+    if within:
         assert lo <= np.median(a) <= hi
 
 
@@ -663,6 +667,90 @@ def test_sen_slope_properties_and_dtype():
 
 
 # ---------------------------------------------------------------------------------------------
+# Seasonal Sen slope (Hirsch, Slack & Smith 1982)
+# ---------------------------------------------------------------------------------------------
+@pytest.mark.parametrize("period", [4, 12])
+def test_seasonal_sen_slope_matches_pymannkendall(period):
+    # pymannkendall.seasonal_sens_slope(x, period) works per index with a cycle as the unit of
+    # time: with t = t0 + step / period [decimal years] a cycle is one year, so its slope is ours
+    # per year, and its intercept (origin at step 0) is ours + slope * t0. NaNs, ties, a partial
+    # last cycle and a seasonal wave included.
+    rng = np.random.default_rng(100 + period)
+    n = 6 * period + period // 2
+    y = _series_with_ties_and_nans(rng, 150, n, min_valid=3 * period)
+    y += np.round(np.sin(2 * np.pi * np.arange(n) / period), 1)
+    season = np.arange(n) % period
+    for t0 in (0.0, 2013.0):
+        t = t0 + np.arange(n) / period
+        res = seasonal_sen_slope(y, season, t)
+        for r in range(y.shape[0]):
+            ref = pmk.seasonal_sens_slope(y[r], period=period)
+            assert res.slope[r] == pytest.approx(ref.slope, rel=1e-9, abs=1e-12), r
+            assert res.intercept[r] + res.slope[r] * t0 == pytest.approx(ref.intercept, rel=1e-9, abs=1e-9), r
+
+
+def _seasonal_sen_interval_reference(y, season, t, confidence):
+    # slow obvious implementation: the within-season slopes sorted, Gilbert's (1987) ranks
+    # M1 = (N' - C)/2, M2 = (N' + C)/2 + 1 (1-based), C = z sqrt(Var S), Var S the seasonal
+    # Kendall variance (pymannkendall.seasonal_test), rounded half-even as scipy.stats.theilslopes
+    slopes = []
+    for g in np.unique(season):
+        ok = (season == g) & ~np.isnan(y)
+        yy, tt = y[ok], t[ok]
+        slopes += [(yy[j] - yy[i]) / (tt[j] - tt[i]) for i in range(yy.size) for j in range(i + 1, yy.size)]
+    slopes = np.sort(slopes)
+    var_s = pmk.seasonal_test(y, period=int(season.max()) + 1).var_s
+    c = stats.norm.ppf(0.5 + confidence / 2) * math.sqrt(var_s)
+    n = slopes.size
+    lo = max(int(np.round((n - c) / 2)) - 1, 0)
+    hi = min(int(np.round((n + c) / 2)), n - 1)
+    return slopes[lo], slopes[hi]
+
+
+@pytest.mark.parametrize("confidence", [0.95, 0.8])
+def test_seasonal_sen_slope_interval(confidence):
+    rng = np.random.default_rng(int(confidence * 100))
+    period, n = 4, 30
+    y = _series_with_ties_and_nans(rng, 60, n, min_valid=16)
+    season = np.arange(n) % period
+    t = 2010 + np.arange(n) / period
+    res = seasonal_sen_slope(y, season, t, confidence=confidence)
+    for r in range(y.shape[0]):
+        lo, hi = _seasonal_sen_interval_reference(y[r], season, t, confidence)
+        assert (res.low[r], res.high[r]) == (pytest.approx(lo, rel=1e-9), pytest.approx(hi, rel=1e-9)), r
+    # one season: the Theil-Sen slope and interval (scipy.stats.theilslopes, checked above)
+    one = seasonal_sen_slope(y, np.zeros(n), t, confidence=confidence)
+    for r in range(0, 60, 7):
+        ok = ~np.isnan(y[r])
+        ref = stats.theilslopes(y[r, ok], t[ok], alpha=confidence)
+        np.testing.assert_allclose([one.slope[r], one.intercept[r], one.low[r], one.high[r]],
+                                   [ref.slope, ref.intercept, ref.low_slope, ref.high_slope],
+                                   rtol=1e-10, atol=1e-9)
+
+
+def test_seasonal_sen_slope_ignores_cross_season_pairs_and_keeps_dtype():
+    # a sawtooth season (slow green-up, sudden drop) over 2.5 cycles turns the plain Sen slope
+    # positive; the within-season pairs see only the trend (Hirsch et al. 1982): a noise-free
+    # -0.02 per year is found
+    t = 2015 + np.arange(30) / 12
+    y = (0.4 + 0.2 * (np.arange(30) % 12) / 11 - 0.02 * (t - 2015)).astype(np.float32)
+    r = seasonal_sen_slope(y, np.arange(30) % 12, t)
+    assert r.slope.dtype == np.float32
+    assert r.slope == pytest.approx(-0.02, rel=1e-4)
+    assert sen_slope(y, t).slope > 0  # the plain Sen slope is misled by the season
+    # unsorted times: the same after sorting (season labels travel with their steps)
+    perm = np.random.default_rng(0).permutation(30)
+    rp = seasonal_sen_slope(y[perm], (np.arange(30) % 12)[perm], t[perm])
+    assert rp.slope == r.slope and rp.low == r.low
+    # no season holds two valid values: NaN (documented)
+    assert np.isnan(seasonal_sen_slope(np.arange(4.0), np.arange(4)).slope)
+    with pytest.raises(ShapeError, match="season"):
+        seasonal_sen_slope(y, np.zeros(3), t)
+    with pytest.raises(InputError, match="confidence level"):
+        seasonal_sen_slope(y, np.zeros(30), t, confidence=1.5)
+
+
+# ---------------------------------------------------------------------------------------------
 # Pettitt
 # ---------------------------------------------------------------------------------------------
 def _pettitt_reference(x):
@@ -739,3 +827,15 @@ def test_fdr_bad_arguments():
         fdr([0.5, 1.5])
     with pytest.raises(UnknownNameError, match="bh"):
         fdr(BH_P, method="bonferroni")
+
+
+def test_package_exports_functions_not_their_modules():
+    # unmix.trend is a package whose method modules share their function's name: the package
+    # namespace must hold the functions (re-exported in __init__), as the flat module did
+    import types
+
+    import unmix.trend as trend
+
+    for name in trend.__all__:
+        assert not isinstance(getattr(trend, name), types.ModuleType), name
+    assert trend.mann_kendall is mann_kendall and trend.fdr is fdr

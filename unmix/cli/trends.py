@@ -36,7 +36,8 @@ __all__ = ["trends"]
               help="Serial-correlation correction of the Mann-Kendall test (not used with seasons).")
 @click.option("--season-scheme", type=click.Choice([s.value for s in SeasonScheme]), default="none",
               show_default=True,
-              help="Seasonal Kendall test by calendar month or by meteorological season (DJF, MAM, JJA, SON).")
+              help="Seasonal Kendall test and seasonal Sen slope by calendar month or by meteorological season "
+                   "(DJF, MAM, JJA, SON).")
 @click.option("--min-valid", type=click.IntRange(min=3), default=8, show_default=True,
               help="Fewest valid dates a pixel needs for a label; fewer gives insufficient_data.")
 @click.option("--rules", "rules_file", type=click.Path(path_type=Path), default=None, metavar="FILE",

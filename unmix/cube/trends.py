@@ -44,47 +44,21 @@ each rule variable's attributes.
 
 from __future__ import annotations
 
-import enum
 from collections.abc import Sequence
-from typing import Any
 
 import numpy as np
 import xarray as xr
 
 from .. import __version__
-from ..errors import InputError, ShapeError
 from ..dates import decimal_years
-from .georef import pixel_area_m2
-from ..trajectory import (
-    FLAG_MEANINGS,
-    FLAG_VALUES,
-    Rule,
-    _check_thresholds,
-    check_rule_names,
-    effect_sizes,
-    evaluate_rules,
-    label_trajectories,
-    rank_tests,
-)
+from ..errors import InputError, ShapeError
+from ..trajectory import Rule, check_rule_names, effect_sizes, label_trajectories, rank_tests
+from ..trajectory.labels import _check_thresholds
 from ..trend import DEFAULT_CORRECTION, MannKendallCorrection, fdr
+from ._trend_outputs import _add_rules, _annotate
+from .seasons import SeasonScheme, _season_scheme, season_labels
 
 __all__ = ["SeasonScheme", "trend_cube", "season_labels", "TREND_VARIABLES"]
-
-
-class SeasonScheme(str, enum.Enum):
-    """How dates are grouped into seasons for the seasonal Kendall test.
-
-    NONE
-        No seasons: the Mann-Kendall test on the whole series.
-    MONTH
-        Calendar month (12 seasons).
-    QUARTER
-        Meteorological seasons: December-February, March-May, June-August, September-November.
-    """
-
-    NONE = "none"
-    MONTH = "month"
-    QUARTER = "quarter"
 
 
 #: Data variables of the trend cube on (endmember, y, x), in output order.
@@ -103,37 +77,6 @@ TREND_VARIABLES = (
     "step",
     "n_valid",
 )
-
-
-def season_labels(times, scheme) -> np.ndarray | None:
-    """Integer season label of each date under a :class:`SeasonScheme` (None for ``none``).
-
-    ``month``: 1..12. ``quarter``: 0 = Dec-Feb, 1 = Mar-May, 2 = Jun-Aug, 3 = Sep-Nov.
-
-    Examples
-    --------
-    >>> season_labels(np.array(["2020-01-15", "2020-04-15", "2020-12-15"], dtype="datetime64[D]"), "quarter").tolist()
-    [0, 1, 0]
-    """
-    scheme = _season_scheme(scheme)
-    if scheme is SeasonScheme.NONE:
-        return None
-    t = np.asarray(times).astype("datetime64[M]")
-    month = t.astype(np.int64) % 12 + 1
-    if scheme is SeasonScheme.MONTH:
-        return month
-    return (month % 12) // 3
-
-
-def _season_scheme(scheme) -> SeasonScheme:
-    if scheme is None:
-        return SeasonScheme.NONE
-    try:
-        return SeasonScheme(scheme)
-    except ValueError:
-        raise InputError(
-            f"unknown season scheme {scheme!r}; use one of: {', '.join(s.value for s in SeasonScheme)}"
-        ) from None
 
 
 def _is_dask(obj: xr.DataArray) -> bool:
@@ -165,7 +108,7 @@ def _bh_block(block, *, q):
 
 def _stage_effects(y, qq, *, t, correction, season, q, min_slope, min_valid, min_step, confidence, min_segment):
     tests = rank_tests(y, t, correction=correction, season=season)
-    effects = effect_sizes(y, t, confidence=confidence, min_segment=min_segment)
+    effects = effect_sizes(y, t, confidence=confidence, min_segment=min_segment, season=season)
     q_value = qq[..., 0]
     change_q = qq[..., 1]
     label, change_index, step = label_trajectories(
@@ -194,10 +137,6 @@ def _index_to_date(index, *, times):
     ok = index >= 0
     out[ok] = times[index[ok]]
     return out
-
-
-def _rule_block(codes, *, rule, endmembers):
-    return evaluate_rules([rule], codes, endmembers)[rule.name]
 
 
 # --------------------------------------------------------------------------------------------------
@@ -264,7 +203,8 @@ def trend_cube(
     correction : MannKendallCorrection or str
         Serial-correlation correction of the Mann-Kendall test (unused with seasons).
     season_scheme : SeasonScheme or str, optional
-        ``month`` or ``quarter`` for the seasonal Kendall test; ``none``/None for Mann-Kendall.
+        ``month`` or ``quarter`` for the seasonal Kendall test and the seasonal Sen slope
+        (within-season pairs only); ``none``/None for Mann-Kendall and the Theil-Sen slope.
     rules : sequence of Rule, optional
         Modification rules (:func:`unmix.io.rules.read_rules`); endmember names are checked.
     confidence : float
@@ -385,7 +325,10 @@ def trend_cube(
         output_dtypes=["datetime64[ns]"],
     )
     data_vars = {name: out[name].transpose("endmember", "y", "x") for name in TREND_VARIABLES}
-    _annotate(data_vars, q=q, min_slope=min_slope, min_valid=min_valid, min_step=min_step, confidence=confidence)
+    _annotate(
+        data_vars, q=q, min_slope=min_slope, min_valid=min_valid, min_step=min_step, confidence=confidence,
+        seasonal=scheme is not SeasonScheme.NONE,
+    )
 
     coords = {k: v for k, v in fr.coords.items() if k != "time" and "time" not in v.dims}
     if "spatial_ref" in ds_in.coords:
@@ -412,8 +355,9 @@ def trend_cube(
         "title": "unmix trends: fraction trajectories per endmember",
         "unmix_version": __version__,
         "method": (
-            "Mann-Kendall" if scheme is SeasonScheme.NONE else f"seasonal Kendall ({scheme.value})"
-        ) + " + Theil-Sen slope + Pettitt; BH FDR per endmember map; step vs line by BIC",
+            "Mann-Kendall + Theil-Sen slope" if scheme is SeasonScheme.NONE
+            else f"seasonal Kendall ({scheme.value}) + seasonal Sen slope"
+        ) + " + Pettitt; BH FDR per endmember map; step vs line by BIC",
         "parameters": json.dumps(parameters, sort_keys=True),
         "endmember_names": ", ".join(endmembers),
         "time_coverage_start": str(times[0].astype("datetime64[D]")),
@@ -424,85 +368,3 @@ def trend_cube(
         if key in ds_in.attrs:
             result.attrs[f"fractions_{key}"] = ds_in.attrs[key]
     return result
-
-
-def _annotate(v: dict[str, xr.DataArray], *, q, min_slope, min_valid, min_step, confidence) -> None:
-    pct = f"{100 * confidence:g} %"
-    attrs: dict[str, dict[str, Any]] = {
-        "trajectory": {
-            "long_name": "trajectory of the fraction",
-            "flag_values": FLAG_VALUES,
-            "flag_meanings": FLAG_MEANINGS,
-            "comment": (
-                f"abrupt: Pettitt q <= {q}, BIC prefers a step over a line, |step| >= {min_step}; "
-                f"gradual: Mann-Kendall q <= {q} and |Sen slope| >= {min_slope} 1/yr; "
-                f"insufficient_data: fewer than {min_valid} valid dates"
-            ),
-        },
-        "slope": {"long_name": "Theil-Sen slope of the fraction", "units": "1/yr"},
-        "slope_low": {"long_name": f"lower bound of the {pct} confidence interval of the Theil-Sen slope", "units": "1/yr"},
-        "slope_high": {"long_name": f"upper bound of the {pct} confidence interval of the Theil-Sen slope", "units": "1/yr"},
-        "intercept": {
-            "long_name": "Sen intercept: fraction = intercept + slope * decimal year",
-            "units": "1",
-        },
-        "tau": {"long_name": "Kendall's tau of the fraction against time", "units": "1"},
-        "p_value": {"long_name": "two-sided p-value of the Mann-Kendall trend test", "units": "1"},
-        "q_value": {"long_name": "Benjamini-Hochberg adjusted Mann-Kendall p-value over the endmember map", "units": "1"},
-        "change_date": {"long_name": "first date after the break of an abrupt change"},
-        "change_p": {"long_name": "p-value of the Pettitt change-point test", "units": "1"},
-        "change_q": {"long_name": "Benjamini-Hochberg adjusted Pettitt p-value over the endmember map", "units": "1"},
-        "step": {"long_name": "abrupt change: mean fraction after minus before the break", "units": "1"},
-        "n_valid": {"long_name": "number of dates with a valid fraction", "units": "1"},
-    }
-    for name, a in attrs.items():
-        v[name].attrs = a
-
-
-def _add_rules(result: xr.Dataset, rules: list[Rule], endmembers: list[str], lazy: bool) -> None:
-    codes = result["trajectory"]
-    if lazy:
-        codes = codes.chunk({"endmember": -1})
-    area_m2, area_note = pixel_area_m2(result)
-    counts, valids = [], []
-    for rule in rules:
-        mask = xr.apply_ufunc(
-            _rule_block,
-            codes,
-            input_core_dims=[["endmember"]],
-            kwargs={"rule": rule, "endmembers": endmembers},
-            dask="parallelized",
-            output_dtypes=[np.uint8],
-        ).transpose("y", "x")
-        mask.attrs = {
-            "long_name": f"modification rule {rule.name}",
-            "rule": rule.text,
-            "flag_values": np.array([0, 1, 255], dtype=np.uint8),
-            "flag_meanings": "false true insufficient_data",
-            "comment": "255 where an endmember the rule names has insufficient_data; areas in rule_area",
-        }
-        count = (mask == 1).sum(("y", "x"))
-        valid = (mask <= 1).sum(("y", "x"))
-        if not lazy:
-            c, v = int(count), int(valid)
-            mask.attrs.update(
-                pixel_count=c,
-                area_ha=c * area_m2 / 1e4,
-                share_of_valid=(c / v) if v else float("nan"),
-            )
-        result[rule.name] = mask
-        counts.append(count)
-        valids.append(valid)
-    names = [r.name for r in rules]
-    count = xr.concat(counts, dim="rule").assign_coords(rule=names).astype(np.int64)
-    valid = xr.concat(valids, dim="rule").assign_coords(rule=names).astype(np.int64)
-    result["rule_pixels"] = count.assign_attrs(long_name="pixels where the rule is true", units="1")
-    result["rule_area"] = (count * area_m2 / 1e4).assign_attrs(
-        long_name="area where the rule is true", units="ha", comment=area_note
-    )
-    result["rule_share"] = (count / valid.where(valid > 0)).assign_attrs(
-        long_name="share of the pixels with data for the rule where it is true", units="1"
-    )
-    result["rule_expression"] = xr.DataArray([r.text for r in rules], dims="rule", coords={"rule": names}).assign_attrs(
-        long_name="rule expression"
-    )
