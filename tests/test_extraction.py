@@ -1,4 +1,6 @@
-"""Tests of unmix.extraction: endmember count, VCA / N-FINDR / ATGP / PPI, stack sampling, matching.
+"""Tests of unmix.extraction: endmember count, VCA / N-FINDR / ATGP / PPI, matching.
+
+Stack sampling (unmix.cube.extraction) is tested in tests/test_cube_extraction.py.
 
 Synthetic scenes: linear mixtures with Dirichlet(1, ..., 1) abundances (uniform on the simplex) of
 either random smooth spectra made here or spectra of the shipped demo library, one pure pixel per
@@ -18,6 +20,7 @@ from scipy import optimize, stats
 
 from unmix import extraction as ex
 from unmix.errors import BandMismatchError, InputError, RankError, ShapeError, UnknownNameError
+from unmix.extraction.ppi import _merge_candidates
 from unmix.io.library import read_shipped_library
 
 # ------------------------------------------------------------------------------------------------
@@ -376,7 +379,7 @@ def test_ppi_merge_hand_case():
     # Merging rule (ppi docstring), by hand: candidates sorted by hits 10, 7, 5, 2 with spectra
     # (1,0), (1,0.01), (0,1), (0.01,1). Angle (1,0)-(1,0.01) = atan(0.01) = 0.573° <= 3° -> merged
     # (17 hits); (0,1) is 90° away -> new group; (0.01,1) 0.573° from (0,1) -> merged (7 hits).
-    reps, totals = ex._merge_candidates(
+    reps, totals = _merge_candidates(
         np.array([[1, 0], [1, 0.01], [0, 1], [0.01, 1]]), np.array([10, 7, 5, 2]), np.deg2rad(3.0)
     )
     assert reps.tolist() == [0, 2] and totals.tolist() == [17, 7]
@@ -397,65 +400,6 @@ def test_ppi_merges_near_duplicates():
     assert len(idx) == 3 and groups == [0, 1, 2]
     with pytest.raises(InputError, match="merge_angle_deg"):
         ex.ppi(np.vstack([em, a @ em]), 3, merge_angle_deg=89.0)
-
-
-# ------------------------------------------------------------------------------------------------
-# stacks
-# ------------------------------------------------------------------------------------------------
-
-
-def _stack_with_pure_pixels(rng):
-    em = smooth_spectra(3, 8, rng)
-    nt, ny, nx = 4, 12, 10
-    a = rng.dirichlet(np.ones(3), (nt, ny, nx))
-    cube = np.einsum("tyxk,kb->tbyx", a, em).astype(np.float32)
-    where = [(2, 3, 4), (0, 11, 0), (3, 5, 9)]  # (t, y, x) of the pure pixel of each endmember
-    for k, (t, y, x) in enumerate(where):
-        cube[t, :, y, x] = em[k]
-    cube[1, :, :6, :] = np.nan  # clouds over part of date 1
-    cube[0, 2, 0, 0] = np.nan
-    return cube, em, where
-
-
-@pytest.mark.parametrize("method", ["vca", "nfindr", "atgp", "ppi"])
-def test_stack_extraction_reports_dates_and_positions(method):
-    rng = np.random.default_rng(0)
-    cube, em, where = _stack_with_pure_pixels(rng)
-    dates = np.array(["2020-03-01", "2020-06-01", "2020-09-01", "2020-12-01"], dtype="datetime64[D]")
-    r = ex.extract_from_stack(cube, 3, method=method, seed=0, sample_size=None, dates=dates)
-    got = sorted(zip(r.time_index.tolist(), r.y.tolist(), r.x.tolist()))
-    assert got == sorted(where)
-    for k in range(3):
-        np.testing.assert_array_equal(cube[r.time_index[k], :, r.y[k], r.x[k]], r.spectra[k])
-        assert r.dates[k] == dates[r.time_index[k]]
-    assert r.n_sampled == np.isfinite(cube).all(axis=1).sum()
-
-
-def test_stack_sample_dask_equals_numpy_and_skips_nan():
-    da = pytest.importorskip("dask.array")
-    rng = np.random.default_rng(1)
-    cube, _, _ = _stack_with_pure_pixels(rng)
-    lazy = da.from_array(cube, chunks=(1, 8, 5, 5))
-    a = ex.sample_stack(cube, sample_size=200, seed=3)
-    b = ex.sample_stack(lazy, sample_size=200, seed=3)
-    assert a.pixels.shape == (200, 8) and np.isfinite(a.pixels).all()
-    np.testing.assert_array_equal(a.pixels, b.pixels)
-    np.testing.assert_array_equal(a.time_index, b.time_index)
-    np.testing.assert_array_equal(cube[a.time_index, :, a.y, a.x], a.pixels)
-    # all distinct pixel-dates
-    assert len(set(zip(a.time_index.tolist(), a.y.tolist(), a.x.tolist()))) == 200
-
-
-def test_stack_sample_fills_up_despite_nan():
-    # 90 % of the pixel-dates are NaN: the sampler must draw again until it holds sample_size.
-    cube = np.full((5, 3, 40, 40), np.nan, dtype=np.float32)
-    rng = np.random.default_rng(0)
-    mask = rng.random((5, 40, 40)) < 0.1
-    cube[:, :, :, :] = np.where(mask[:, None], 0.2, np.nan)
-    s = ex.sample_stack(cube, sample_size=500, seed=0)
-    assert s.pixels.shape[0] == 500 and np.isfinite(s.pixels).all()
-    s_all = ex.sample_stack(cube, sample_size=None)
-    assert s_all.pixels.shape[0] == mask.sum()
 
 
 # ------------------------------------------------------------------------------------------------
@@ -527,7 +471,30 @@ def test_bad_input():
         ex.extract(x, 3, method="vca", n_restarts=3)
     with pytest.raises(InputError, match="false_alarm"):
         ex.hfc(x, false_alarm=0.7)
-    with pytest.raises(ShapeError, match="time, band, y, x"):
-        ex.extract_from_stack(np.ones((3, 4, 5)), 2)
-    with pytest.raises(ShapeError, match="dates"):
-        ex.extract_from_stack(np.ones((2, 3, 4, 5)), 2, dates=["2020-01-01"])
+
+
+def test_kernel_package_imports_no_upper_layer():
+    # House rule (DEVELOPERS.md, layers): a kernel package imports no xarray/dask/rasterio/click/matplotlib.
+    import subprocess
+    import sys
+
+    code = (
+        "import sys, unmix.extraction, unmix.extraction.count, unmix.extraction.matching; "
+        "bad = sorted(m for m in ('xarray', 'dask', 'rasterio', 'click', 'matplotlib') if m in sys.modules); "
+        "print(','.join(bad))"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == ""
+
+
+def test_public_names_stay_importable_from_the_package():
+    # The package split (one topic module per method) keeps every public name at its old place.
+    import importlib
+
+    pkg = importlib.import_module("unmix.extraction")
+    for name in pkg.__all__:
+        obj = getattr(pkg, name)
+        home = obj.__module__
+        assert home == pkg.__name__ or home.startswith(pkg.__name__ + ".")
+        assert getattr(importlib.import_module(home), name) is obj
+    assert not hasattr(pkg, "sample_stack")  # cube-layer work: unmix.cube.extraction

@@ -255,7 +255,7 @@ def test_on_the_fly_subproblems_match_the_tables(monkeypatch):
     rng = np.random.default_rng(5)
     M = make_endmembers(rng, 5, 9)
     x = make_pixels(rng, M, 300, spread=6.0, noise=0.02)
-    monkeypatch.setattr(solvers, "_TABLE_MAX_ENDMEMBERS", 0)
+    monkeypatch.setattr(solvers.fcls, "_TABLE_MAX_ENDMEMBERS", 0)  # the operator tables live in unmix.solvers.fcls
     for con in ("fcls", "non-negative"):
         f, _ = estimate_fractions(x, M, constraint=con)
         np.testing.assert_allclose(f, exact_reference(x, M, con), atol=1e-10)
@@ -574,3 +574,62 @@ def test_shade_normalize_shapes_and_full_shade():
         shade_normalize(f, shade=3)
     with pytest.raises(InputError):
         shade_normalize(f, shade="shade")
+
+
+def test_kernel_package_imports_no_upper_layer():
+    # House rule (DEVELOPERS.md, layers): a kernel package imports no xarray/dask/rasterio/click/matplotlib.
+    import subprocess
+    import sys
+
+    code = (
+        "import sys, unmix.solvers.fcls, unmix.solvers.diagnostics, unmix.solvers.shade; "
+        "bad = sorted(m for m in ('xarray', 'dask', 'rasterio', 'click', 'matplotlib') if m in sys.modules); "
+        "print(','.join(bad))"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == ""
+
+
+def test_public_names_stay_importable_from_the_package():
+    # The package split (one topic module per method) keeps every public name at its old place.
+    import importlib
+
+    pkg = importlib.import_module("unmix.solvers")
+    for name in pkg.__all__:
+        obj = getattr(pkg, name)
+        home = getattr(obj, "__module__", None)  # None for the float constants
+        if home is not None:
+            assert home.startswith(pkg.__name__ + ".")
+            assert getattr(importlib.import_module(home), name) is obj
+    from unmix import estimate_fractions as top
+
+    assert top is pkg.estimate_fractions is importlib.import_module("unmix.solvers.fcls").estimate_fractions
+
+
+@settings(max_examples=40, deadline=None)
+@given(seed=st.integers(0, 100_000), n=st.integers(1, 12), bordered=st.booleans())
+def test_shared_dense_solve_matches_numpy(seed, n, bordered):
+    # unmix._gauss_numba.gauss_solve (shared by the FCLS and MESMA kernels) against numpy.linalg.solve
+    # (LAPACK gesv) on random SPD systems, plain or bordered by the sum-to-one row/column as in FCLS.
+    from unmix._gauss_numba import gauss_solve
+
+    rng = np.random.default_rng(seed)
+    B = rng.normal(size=(n + 3, n))
+    K = B.T @ B + 0.1 * np.eye(n)
+    if bordered:
+        K = np.block([[K, np.ones((n, 1))], [np.ones((1, n)), np.zeros((1, 1))]])
+    m = K.shape[0]
+    rhs = rng.normal(size=m)
+    W = np.zeros((m + 2, m + 3))  # larger scratch, as in the kernels
+    W[:m, :m] = K
+    W[:m, m] = rhs
+    assert gauss_solve(W, m, -1.0)
+    np.testing.assert_allclose(W[:m, m], np.linalg.solve(K, rhs), rtol=1e-9, atol=1e-9)
+
+
+def test_shared_dense_solve_reports_a_singular_system():
+    # Two equal rows: elimination leaves a zero pivot, which a non-negative ``tiny`` reports (MESMA's use).
+    from unmix._gauss_numba import gauss_solve
+
+    W = np.array([[1.0, 2.0, 3.0, 1.0], [1.0, 2.0, 3.0, 2.0], [0.0, 1.0, 4.0, 3.0]])
+    assert not gauss_solve(W.copy(), 3, 1e-13 * 4.0)

@@ -8,8 +8,9 @@ import click
 import numpy as np
 
 from .. import __version__
+from ..cube.extraction import sample_stack
 from ..errors import InputError
-from ..extraction import CountMethod, ExtractionMethod, estimate_count, extract, match_library, sample_stack
+from ..extraction import CountMethod, ExtractionMethod, estimate_count, extract, match_library
 from ..io.library import read_library, sidecar_path, write_library
 from ..io.stack import open_stack
 from ..pruning import PruningMethod, prune

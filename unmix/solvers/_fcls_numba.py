@@ -1,4 +1,4 @@
-"""Compiled per-pixel loop behind :func:`unmix.solvers.estimate_fractions`.
+"""Compiled per-pixel loop behind :func:`unmix.solvers.estimate_fractions` (see :mod:`unmix.solvers.fcls`).
 
 Private module: the public entry point validates its inputs and prepares the operators; the code here
 trusts them. Every pixel is reduced to the ``n_endmembers``-sized normal equations of its problem
@@ -12,13 +12,16 @@ is tried first; if a fraction comes out negative, a primal active-set method in 
 Hanson (1974), extended with the equality constraint and warm-started by iterative removal of negative
 fractions, finds the exact optimum. Its subproblems (the equality-constrained least squares
 restricted to a support) are solved either by looking up the precomputed solution operator of the
-support (``use_table``) or by a small dense solve.
+support (``use_table``) or by a small dense solve (:func:`unmix._gauss_numba.gauss_solve`, shared with
+the MESMA kernel).
 """
 
 from __future__ import annotations
 
 import numpy as np
 from numba import njit, prange
+
+from .._gauss_numba import gauss_solve
 
 MODE_NONE = 0
 MODE_SUM_TO_ONE = 1
@@ -35,40 +38,7 @@ _FASTMATH = {"reassoc", "contract", "nsz"}
 
 
 @njit(cache=True, inline="always", fastmath=_FASTMATH)
-def _solve_dense(K, rhs, m):
-    """Solve K[:m, :m] y = rhs[:m] in place (Gaussian elimination, partial pivoting); y in rhs."""
-    for c in range(m):
-        piv = c
-        big = abs(K[c, c])
-        for r in range(c + 1, m):
-            v = abs(K[r, c])
-            if v > big:
-                big = v
-                piv = r
-        if piv != c:
-            for cc in range(m):
-                t = K[c, cc]
-                K[c, cc] = K[piv, cc]
-                K[piv, cc] = t
-            t = rhs[c]
-            rhs[c] = rhs[piv]
-            rhs[piv] = t
-        d = K[c, c]
-        for r in range(c + 1, m):
-            f = K[r, c] / d
-            if f != 0.0:
-                for cc in range(c, m):
-                    K[r, cc] -= f * K[c, cc]
-                rhs[r] -= f * rhs[c]
-    for c in range(m - 1, -1, -1):
-        s = rhs[c]
-        for cc in range(c + 1, m):
-            s -= K[c, cc] * rhs[cc]
-        rhs[c] = s / K[c, c]
-
-
-@njit(cache=True, inline="always", fastmath=_FASTMATH)
-def _subproblem(insup, eq, G, b, Ptab, qtab, use_table, idx, K, rhs, z):
+def _subproblem(insup, eq, G, b, Ptab, qtab, use_table, idx, K, z):
     """Optimum ``z`` of the (equality-constrained if ``eq``) problem restricted to the support.
 
     Entries of ``z`` outside the support are left untouched. Returns the support size.
@@ -88,26 +58,26 @@ def _subproblem(insup, eq, G, b, Ptab, qtab, use_table, idx, K, rhs, z):
                 s += Ptab[mask, r, c] * b[idx[c]]
             z[idx[r]] = s
     else:
+        # augmented system in K (m rows, right-hand side in column m), bordered under sum-to-one
+        m = k + 1 if eq else k
         for r in range(k):
             for c in range(k):
                 K[r, c] = G[idx[r], idx[c]]
-            rhs[r] = b[idx[r]]
-        m = k
+            K[r, m] = b[idx[r]]
         if eq:
             for r in range(k):
                 K[r, k] = 1.0
                 K[k, r] = 1.0
             K[k, k] = 0.0
-            rhs[k] = 1.0
-            m = k + 1
-        _solve_dense(K, rhs, m)
+            K[k, m] = 1.0
+        gauss_solve(K, m, -1.0)
         for r in range(k):
-            z[idx[r]] = rhs[r]
+            z[idx[r]] = K[r, m]
     return k
 
 
 @njit(cache=True, inline="always", fastmath=_FASTMATH)
-def _active_set(G, gmax, b, eq, Ptab, qtab, use_table, a0, a, z, g, insup, idx, K, rhs):
+def _active_set(G, gmax, b, eq, Ptab, qtab, use_table, a0, a, z, g, insup, idx, K):
     """Exact minimiser of 1/2 a^T G a - b^T a over a >= 0 (and sum(a) = 1 if ``eq``), into ``a``.
 
     Primal active-set method (the NNLS algorithm of Lawson & Hanson 1974, ch. 23 from memory, extended
@@ -139,7 +109,7 @@ def _active_set(G, gmax, b, eq, Ptab, qtab, use_table, a0, a, z, g, insup, idx, 
     for _it in range(p):
         if nsup == 0:
             break
-        k = _subproblem(insup, eq, G, b, Ptab, qtab, use_table, idx, K, rhs, z)
+        k = _subproblem(insup, eq, G, b, Ptab, qtab, use_table, idx, K, z)
         clean = True
         for r in range(k):
             j = idx[r]
@@ -200,7 +170,7 @@ def _active_set(G, gmax, b, eq, Ptab, qtab, use_table, a0, a, z, g, insup, idx, 
         insup[enter] = True
         stalled = False
         for inner in range(p + 2):
-            k = _subproblem(insup, eq, G, b, Ptab, qtab, use_table, idx, K, rhs, z)
+            k = _subproblem(insup, eq, G, b, Ptab, qtab, use_table, idx, K, z)
             if inner == 0 and z[enter] <= 0.0:
                 # the multiplier was negative only by rounding: the current point is optimal
                 insup[enter] = False
@@ -268,8 +238,7 @@ def unmix_pixels(x, M, L, q, MWs, Pb, qb, via_b, G, Ptab, qtab, use_table, mode,
         bvec = np.empty(p)
         insup = np.zeros(p, dtype=np.bool_)
         idx = np.empty(p, dtype=np.int64)
-        K = np.empty((p + 1, p + 1))
-        rhs = np.empty(p + 1)
+        K = np.empty((p + 1, p + 2))  # augmented: right-hand side in the column after the system
         start = ib * block
         stop = min(n, start + block)
         for i in range(start, stop):
@@ -317,7 +286,7 @@ def unmix_pixels(x, M, L, q, MWs, Pb, qb, via_b, G, Ptab, qtab, use_table, mode,
                         bvec[j] = s
                 for j in range(p):
                     a0[j] = a[j]
-                _active_set(G, gmax, bvec, eq, Ptab, qtab, use_table, a0, a, z, g, insup, idx, K, rhs)
+                _active_set(G, gmax, bvec, eq, Ptab, qtab, use_table, a0, a, z, g, insup, idx, K)
             # residual from x - M^T a directly (not from the expanded quadratic: no cancellation)
             for k in range(nb):
                 res[k] = xs[k]

@@ -1,4 +1,4 @@
-"""Compiled inner loop of :func:`unmix.extraction.ppi_counts` (pixel purity index)."""
+"""Compiled inner loop of :func:`unmix.extraction.ppi_counts` (pixel purity index), private."""
 
 from __future__ import annotations
 

@@ -1,53 +1,23 @@
-"""Linear spectral unmixing: fractions of endmembers by (constrained) least squares.
-
-A pixel spectrum ``x`` (n_bands) is modelled as a mixture ``x ~ M^T a`` of the endmember spectra
-``M`` (n_endmembers, n_bands) with fractions ``a`` (n_endmembers). :func:`estimate_fractions`
-returns, per pixel, the exact minimiser of the (optionally band-weighted) squared residual under one
-of four constraint sets (:class:`Constraint`):
-
-``"none"``
-    unconstrained least squares;
-``"sum-to-one"``
-    fractions sum to one (closed form of Heinz & Chang 2001);
-``"non-negative"``
-    fractions are non-negative (NNLS, Lawson & Hanson 1974);
-``"fcls"``
-    fully constrained: non-negative and summing to one (Heinz & Chang 2001).
-
-:func:`kkt_residual` certifies a solution (it is zero exactly at the optimum),
-:func:`shade_normalize` removes a shade endmember, :func:`check_endmembers` validates an endmember
-matrix and its conditioning.
-
-The per-pixel work runs in one compiled (numba) loop, see :mod:`unmix._solvers_numba`.
+"""Checks of an unmixing problem and of its solution: endmember validation and conditioning
+(:func:`check_endmembers`) and the optimality certificate of given fractions (:func:`kkt_residual`).
 """
 
 from __future__ import annotations
 
-import enum
-import functools
 import warnings
 
 import numpy as np
 
-from . import _solvers_numba as _nb
-from .errors import (
+from ..errors import (
     BandMismatchError,
     CollinearityWarning,
     InputError,
     RankError,
     ShapeError,
-    UnknownNameError,
 )
+from .constraints import Constraint, _as_constraint, _has_sum_to_one
 
-__all__ = [
-    "Constraint",
-    "estimate_fractions",
-    "kkt_residual",
-    "shade_normalize",
-    "check_endmembers",
-    "COLLINEARITY_WARN_CONDITION",
-    "RANK_ERROR_CONDITION",
-]
+__all__ = ["check_endmembers", "kkt_residual", "COLLINEARITY_WARN_CONDITION", "RANK_ERROR_CONDITION"]
 
 #: Condition number of the (weighted, under sum-to-one projected) mixing system above which
 #: :class:`~unmix.errors.CollinearityWarning` is issued: reflectance errors may be amplified this
@@ -58,49 +28,6 @@ COLLINEARITY_WARN_CONDITION = 1e4
 #: The solver works on the normal equations, whose condition number is the square of this one, so
 #: beyond about 1/sqrt(machine epsilon) the fractions are not determined in double precision.
 RANK_ERROR_CONDITION = 1e8
-
-# Up to this many endmembers the solution operator of every support (2**p - 1 of them) is
-# precomputed; above it the active-set subproblems are solved on the fly.
-_TABLE_MAX_ENDMEMBERS = 10
-
-# Pixels per work unit of the parallel loop.
-_BLOCK = 2048
-
-
-class Constraint(str, enum.Enum):
-    """Constraint set of the fractions in :func:`estimate_fractions`."""
-
-    NONE = "none"
-    SUM_TO_ONE = "sum-to-one"
-    NON_NEGATIVE = "non-negative"
-    FCLS = "fcls"
-
-    def __str__(self) -> str:
-        return self.value
-
-
-_MODES = {
-    Constraint.NONE: _nb.MODE_NONE,
-    Constraint.SUM_TO_ONE: _nb.MODE_SUM_TO_ONE,
-    Constraint.NON_NEGATIVE: _nb.MODE_NON_NEGATIVE,
-    Constraint.FCLS: _nb.MODE_FCLS,
-}
-
-
-def _as_constraint(constraint) -> Constraint:
-    if isinstance(constraint, Constraint):
-        return constraint
-    if isinstance(constraint, str):
-        key = constraint.strip().lower().replace("_", "-")
-        for c in Constraint:
-            if c.value == key:
-                return c
-    valid = ", ".join(repr(c.value) for c in Constraint)
-    raise UnknownNameError(f"unknown constraint {constraint!r}; use one of {valid}")
-
-
-def _has_sum_to_one(con: Constraint) -> bool:
-    return con in (Constraint.SUM_TO_ONE, Constraint.FCLS)
 
 
 # --------------------------------------------------------------------------------------------------
@@ -287,92 +214,6 @@ def check_endmembers(endmembers, *, constraint="fcls", n_bands=None, names=None,
     return M
 
 
-# --------------------------------------------------------------------------------------------------
-# precomputed operators
-# --------------------------------------------------------------------------------------------------
-
-
-def _support_tables(Gs, eq):
-    """Solution operators of every support: z_S = P[mask] b_S + q[mask] (indices in ascending order)."""
-    p = Gs.shape[0]
-    nmask = 1 << p
-    P = np.zeros((nmask, p, p))
-    qv = np.zeros((nmask, p))
-    masks = np.arange(1, nmask)
-    bits = (masks[:, None] >> np.arange(p)) & 1
-    sizes = bits.sum(axis=1)
-    for k in range(1, p + 1):
-        sel = masks[sizes == k]
-        idx = np.nonzero(bits[sizes == k])[1].reshape(-1, k)
-        Gsub = Gs[idx[:, :, None], idx[:, None, :]]
-        if eq:
-            K = np.zeros((len(sel), k + 1, k + 1))
-            K[:, :k, :k] = Gsub
-            K[:, :k, k] = 1.0
-            K[:, k, :k] = 1.0
-            Kinv = np.linalg.inv(K)
-            P[sel, :k, :k] = Kinv[:, :k, :k]
-            qv[sel, :k] = Kinv[:, :k, k]
-        else:
-            P[sel, :k, :k] = np.linalg.inv(Gsub)
-    return P, qv
-
-
-@functools.lru_cache(maxsize=16)
-def _operators_cached(mbytes, shape, wbytes, con, table_max):
-    M = np.frombuffer(mbytes, dtype=np.float64).reshape(shape)
-    p, nb = shape
-    w = None if wbytes is None else np.frombuffer(wbytes, dtype=np.float64)
-    sw = np.ones(nb) if w is None else np.sqrt(w)
-    A, Z = _system(M, w, con)
-    if Z is None:
-        L = np.linalg.pinv(A) * sw[None, :]
-        q = np.zeros(p)
-    else:
-        a0 = np.full(p, 1.0 / p)
-        B = Z @ np.linalg.pinv(A @ Z) if p > 1 else np.zeros((p, nb))
-        L = B * sw[None, :]
-        q = a0 - B @ (A @ a0)
-    G = A.T @ A
-    scale = np.trace(G) / p
-    if not scale > 0:
-        scale = 1.0
-    Gs = G / scale
-    MWs = (M * (sw * sw)[None, :]) / scale
-    mode = _MODES[con]
-    # the full-support closed form as a function of b (normal equations), for many-band NNLS/FCLS
-    if mode == _nb.MODE_FCLS:
-        K = np.zeros((p + 1, p + 1))
-        K[:p, :p] = Gs
-        K[:p, p] = K[p, :p] = 1.0
-        Kinv = np.linalg.inv(K)
-        Pb, qb = Kinv[:p, :p].copy(), Kinv[:p, p].copy()
-    elif mode == _nb.MODE_NON_NEGATIVE:
-        Pb, qb = np.linalg.inv(Gs), np.zeros(p)
-    else:
-        Pb, qb = np.zeros((p, p)), np.zeros(p)
-    via_b = bool(mode >= _nb.MODE_NON_NEGATIVE and nb > 2 * p)
-    if mode >= _nb.MODE_NON_NEGATIVE and p <= table_max:
-        Ptab, qtab = _support_tables(Gs, mode == _nb.MODE_FCLS)
-        use_table = True
-    else:
-        Ptab, qtab = np.zeros((1, 1, 1)), np.zeros((1, 1))
-        use_table = False
-    out = (
-        np.ascontiguousarray(M), np.ascontiguousarray(L), q, np.ascontiguousarray(MWs), Pb, qb, via_b, Gs,
-        Ptab, qtab, use_table,
-    )  # fmt: skip
-    for arr in out:
-        if isinstance(arr, np.ndarray):
-            arr.flags.writeable = False
-    return out
-
-
-def _operators(M, w, con):
-    return _operators_cached(
-        np.ascontiguousarray(M).tobytes(), M.shape, None if w is None else w.tobytes(), con, _TABLE_MAX_ENDMEMBERS
-    )
-
 
 def _reflectance(reflectance, name="reflectance"):
     x = np.asarray(reflectance)
@@ -384,111 +225,6 @@ def _reflectance(reflectance, name="reflectance"):
         return x.astype(np.float32, copy=False), np.dtype(np.float32)
     return x.astype(np.float64, copy=False), np.dtype(np.float64)
 
-
-# --------------------------------------------------------------------------------------------------
-# public kernels
-# --------------------------------------------------------------------------------------------------
-
-
-def estimate_fractions(reflectance, endmembers, *, constraint="fcls", weights=None, names=None):
-    """Endmember fractions of every pixel by exact (constrained) least squares.
-
-    Per pixel, minimise ``sum_b w_b (x_b - sum_i a_i M_ib)**2`` over the fractions ``a`` subject to
-    ``constraint``, and report the root mean square of the (unweighted) residual.
-
-    Parameters
-    ----------
-    reflectance : (..., n_bands) array_like
-        Pixel spectra, bands on the last axis [reflectance, 0..1]. A pixel with a NaN (or infinite)
-        band is "no data": its fractions and RMSE are NaN.
-    endmembers : (n_endmembers, n_bands) array_like
-        Endmember spectra, one per row, finite [reflectance].
-    constraint : Constraint or str, default "fcls"
-        ``"none"`` (unconstrained), ``"sum-to-one"``, ``"non-negative"`` or ``"fcls"`` (both).
-    weights : (n_bands,) array_like, optional
-        Positive, finite per-band weights, e.g. inverse noise variance [1/reflectance**2]. Default:
-        all ones (ordinary least squares).
-    names : sequence of str, optional
-        Endmember names, used in warning and error messages only.
-
-    Returns
-    -------
-    fractions : (..., n_endmembers) ndarray
-        Fractions [1], float32 for float32 (or float16) input, float64 otherwise (integers included).
-    rmse : (...) ndarray
-        ``sqrt(mean_b (x_b - sum_i a_i M_ib)**2)`` [reflectance], same dtype.
-
-    Raises
-    ------
-    BandMismatchError, RankError, InputError, ShapeError, UnknownNameError
-        See :func:`check_endmembers`; ``UnknownNameError`` for an unknown ``constraint``.
-
-    Warns
-    -----
-    CollinearityWarning
-        Nearly collinear endmembers (see :func:`check_endmembers`).
-
-    Notes
-    -----
-    Each returned solution is the exact optimum of its problem up to float64 rounding, also for pixels
-    far outside the simplex spanned by the endmembers (no penalty weight is involved). With
-    ``G = M W M^T`` and ``b = M W x`` the problem is ``min 1/2 a^T G a - b^T a``:
-
-    * ``"none"``: ``a = G^-1 b``, applied as the pseudo-inverse of ``sqrt(W) M^T``;
-    * ``"sum-to-one"``: the closed form of Heinz & Chang (2001),
-      ``a = a_LS + G^-1 1 (1 - 1^T a_LS) / (1^T G^-1 1)`` (applied in a null-space form that also
-      holds when ``n_endmembers = n_bands + 1``);
-    * ``"non-negative"`` / ``"fcls"``: the closed form above is tried first; where a fraction comes out
-      negative, the negative ones are dropped and the rest re-solved until all are positive (a common
-      heuristic, on its own not always optimal), and from that feasible
-      start a primal active-set method (Lawson & Hanson 1974, with the sum-to-one equality for FCLS)
-      reaches the exact KKT point in finitely many steps. Its subproblems use precomputed solution
-      operators of every support (up to 10 endmembers) or a small dense solve.
-
-    Inputs are computed in float64. The work runs in one compiled loop over pixels, parallel over
-    threads; memory beyond the outputs is a few small arrays per thread plus, with up to 10 endmembers,
-    the ``2**n_endmembers`` support operators (under 1 MB).
-
-    References
-    ----------
-    Heinz, D. C. & Chang, C.-I. (2001). Fully constrained least squares linear spectral mixture analysis
-    method for material quantification in hyperspectral imagery. IEEE Transactions on Geoscience and
-    Remote Sensing 39(3), 529-545. https://doi.org/10.1109/36.911111
-
-    Lawson, C. L. & Hanson, R. J. (1974). Solving Least Squares Problems. Prentice-Hall (SIAM reprint
-    1995). https://doi.org/10.1137/1.9781611971217
-
-    Keshava, N. & Mustard, J. F. (2002). Spectral unmixing. IEEE Signal Processing Magazine 19(1),
-    44-57. https://doi.org/10.1109/79.974727
-
-    Examples
-    --------
-    >>> import numpy as np
-    >>> M = np.array([[0.04, 0.08, 0.05, 0.50, 0.25, 0.12],   # green vegetation
-    ...               [0.12, 0.16, 0.22, 0.28, 0.38, 0.34],   # soil
-    ...               [0.00, 0.00, 0.00, 0.00, 0.00, 0.00]])  # shade
-    >>> x = np.array([0.6, 0.3, 0.1]) @ M
-    >>> f, rmse = estimate_fractions(x, M, constraint="fcls")
-    >>> np.round(f, 6).tolist(), bool(rmse < 1e-12)
-    ([0.6, 0.3, 0.1], True)
-    """
-    con = _as_constraint(constraint)
-    x, out_dtype = _reflectance(reflectance)
-    M = check_endmembers(endmembers, constraint=con, n_bands=x.shape[-1], names=names, weights=weights)
-    w = _validate_weights(weights, M.shape[1])
-    p, nb = M.shape
-    lead = x.shape[:-1]
-    frac = np.empty(lead + (p,), dtype=out_dtype)
-    rmse = np.empty(lead, dtype=out_dtype)
-    n = int(np.prod(lead, dtype=np.int64))
-    if n == 0:
-        return frac, rmse
-    x2 = np.ascontiguousarray(x.reshape(n, nb))
-    _nb.unmix_pixels(
-        x2, *_operators(M, w, con), _MODES[con],
-        frac.reshape(n, p), rmse.reshape(n), _BLOCK,
-    )  # fmt: skip
-    return frac, rmse
 
 
 def _project_simplex(y):
@@ -554,6 +290,7 @@ def kkt_residual(reflectance, endmembers, fractions, *, constraint="fcls", weigh
     Examples
     --------
     >>> import numpy as np
+    >>> from unmix.solvers import estimate_fractions
     >>> M = np.array([[0.05, 0.08, 0.04, 0.45], [0.20, 0.25, 0.30, 0.35]])
     >>> x = np.array([0.1, 0.1, 0.1, 0.1])
     >>> f, _ = estimate_fractions(x, M)
@@ -594,54 +331,3 @@ def kkt_residual(reflectance, endmembers, fractions, *, constraint="fcls", weigh
     bad = ~(np.all(np.isfinite(x), axis=-1) & np.all(np.isfinite(a), axis=-1))
     r = np.where(bad, np.nan, r)
     return np.asarray(r, dtype=out_dtype)
-
-
-def shade_normalize(fractions, shade):
-    """Fractions of the non-shade endmembers rescaled to sum as if there were no shade.
-
-    Parameters
-    ----------
-    fractions : (..., n_endmembers) array_like
-        Fractions including a shade endmember [1].
-    shade : int
-        Index of the shade endmember on the last axis (negative counts from the end).
-
-    Returns
-    -------
-    normalized : (..., n_endmembers - 1) ndarray
-        ``f_i / (1 - f_shade)`` for every other endmember, in their original order [1]; NaN where
-        ``f_shade >= 1`` (nothing but shade) and where an input is NaN. float32 stays float32,
-        anything else gives float64.
-
-    References
-    ----------
-    Adams, J. B., Sabol, D. E., Kapos, V., Almeida Filho, R., Roberts, D. A., Smith, M. O. &
-    Gillespie, A. R. (1995). Classification of multispectral images based on fractions of endmembers:
-    application to land-cover change in the Brazilian Amazon. Remote Sensing of Environment 52,
-    137-154. https://doi.org/10.1016/0034-4257(94)00098-8 (from memory)
-
-    Examples
-    --------
-    >>> shade_normalize([0.45, 0.25, 0.30], shade=2).round(6).tolist()
-    [0.642857, 0.357143]
-    """
-    f = np.asarray(fractions)
-    if f.dtype.kind not in "biuf":
-        raise InputError(f"fractions must be real numbers, got dtype {f.dtype}")
-    if f.ndim < 1 or f.shape[-1] < 2:
-        raise ShapeError(
-            f"fractions must have at least two endmembers on the last axis, got shape {f.shape}"
-        )
-    f = f.astype(np.float32 if f.dtype == np.float32 else np.float64, copy=False)
-    p = f.shape[-1]
-    if isinstance(shade, (bool, np.bool_)) or not isinstance(shade, (int, np.integer)):
-        raise InputError(f"shade must be the integer index of the shade endmember, got {shade!r}")
-    if not -p <= int(shade) < p:
-        raise InputError(f"shade index {int(shade)} is out of range for {p} endmembers (use 0..{p - 1})")
-    s = int(shade) % p
-    fs = f[..., s]
-    others = np.delete(f, s, axis=-1)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        out = others / (1 - fs)[..., None]
-    out[fs >= 1] = np.nan
-    return out
