@@ -2,7 +2,10 @@
 
 from __future__ import annotations
 
+import fnmatch
 import json
+import shutil
+import tomllib
 from pathlib import Path
 
 import numpy as np
@@ -14,6 +17,7 @@ from unmix.io.library import (
     read_response,
     read_response_sensor,
     read_shipped_library,
+    shipped_library_dir,
     shipped_library_path,
     sidecar_path,
     write_library,
@@ -206,7 +210,7 @@ SHIPPED = ["demo_library", "demo_bundles", "demo_library_landsat-8-oli", "demo_l
 @pytest.mark.parametrize("name", SHIPPED)
 def test_shipped_libraries_read_and_are_marked_invented(name):
     p = shipped_library_path(name)
-    assert p.is_file() and p.parent.name == "endmembers"
+    assert p.is_file() and p.parent == shipped_library_dir()
     lib = read_library(p)
     assert lib.metadata["invented"] is True
     assert all(c is not None for c in lib.classes)
@@ -251,3 +255,79 @@ def test_unknown_shipped_name_lists_available():
     with pytest.raises(LibraryReadError) as e:
         shipped_library_path("no_such_library")
     assert "demo_bundles" in str(e.value)
+
+
+# ---------------------------------------------------------------- shipped files in every kind of install
+REPO = Path(__file__).resolve().parents[1]
+SOURCE_DIR = REPO / "endmembers"  # the shipped libraries as they sit in the repository
+SHIPPED_FILES = sorted(p.name for p in SOURCE_DIR.iterdir() if p.suffix in (".csv", ".json"))
+
+
+def test_source_folder_holds_the_shipped_libraries():
+    # guards the two tests below against an empty listing
+    assert {f"{n}{s}" for n in SHIPPED for s in (".csv", ".json")} <= set(SHIPPED_FILES)
+
+
+@pytest.mark.parametrize("filename", SHIPPED_FILES)
+def test_lookup_finds_every_shipped_file(filename):
+    # through the function the code uses (shipped_library_path -> shipped_library_dir), byte for byte
+    stem, suffix = filename.rsplit(".", 1)
+    found = shipped_library_path(stem).with_suffix("." + suffix)
+    assert found.read_bytes() == (SOURCE_DIR / filename).read_bytes()
+
+
+def test_installed_copy_is_preferred_over_the_source_tree(tmp_path, monkeypatch):
+    # a wheel install carries endmembers/ as unmix/_shipped/; simulate that layout
+    from unmix.io.library import shipped
+
+    installed = tmp_path / "site-packages" / "unmix" / "_shipped"
+    installed.mkdir(parents=True)
+    for name in SHIPPED_FILES:
+        shutil.copyfile(SOURCE_DIR / name, installed / name)
+    monkeypatch.setattr(shipped, "_installed_dir", lambda: installed)
+    assert shipped_library_dir() == installed
+    for name in SHIPPED_FILES:
+        stem, suffix = name.rsplit(".", 1)
+        assert shipped_library_path(stem).with_suffix("." + suffix) == installed / name
+    assert read_shipped_library("demo_library").metadata["path"] == str(installed / "demo_library.csv")
+
+
+def test_missing_shipped_folder_names_where_it_looked(tmp_path, monkeypatch):
+    from unmix.io.library import shipped
+
+    monkeypatch.setattr(shipped, "_installed_dir", lambda: tmp_path / "a" / "_shipped")
+    monkeypatch.setattr(shipped, "_source_dir", lambda: tmp_path / "b" / "endmembers")
+    with pytest.raises(LibraryReadError) as e:
+        shipped_library_path("demo_library")
+    assert str(tmp_path / "a" / "_shipped") in str(e.value) and str(tmp_path / "b" / "endmembers") in str(e.value)
+
+
+def _setuptools_tables():
+    with open(REPO / "pyproject.toml", "rb") as f:
+        return tomllib.load(f)["tool"]["setuptools"]
+
+
+def test_packaging_maps_the_shipped_folder_into_the_wheel():
+    # the wheel gets endmembers/*.csv|json as unmix/_shipped/: the folder the lookup tries first
+    from unmix.io.library import shipped
+
+    st = _setuptools_tables()
+    data_package = f"unmix.{shipped._INSTALLED_FOLDER}"
+    assert data_package in st["packages"]
+    assert st["package-dir"][data_package] == "endmembers"
+    patterns = st["package-data"][data_package]
+    for name in SHIPPED_FILES:
+        assert any(fnmatch.fnmatch(name, pat) for pat in patterns), name
+
+
+def test_packaging_lists_every_package_folder():
+    # packages are listed by hand (the data package is not a folder of unmix/); a new subpackage that
+    # is missing from pyproject.toml would be left out of a wheel install
+    found = {
+        ".".join(d.relative_to(REPO).parts)
+        for d in [REPO / "unmix", *(REPO / "unmix").rglob("*")]
+        if d.is_dir() and d.name != "__pycache__" and any(d.glob("*.py"))
+    }
+    listed = set(_setuptools_tables()["packages"]) - {"unmix._shipped"}
+    assert found - listed == set(), "add these packages to [tool.setuptools] packages in pyproject.toml"
+    assert listed - found == set(), "these packages in pyproject.toml have no folder under unmix/"

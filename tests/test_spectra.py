@@ -308,3 +308,27 @@ def test_on_bands_picks_resampled_bands_or_resamples():
         on_bands(oli, "sentinel-2a-msi", ["B4"])
     with pytest.raises(BandMismatchError, match="no band B1"):
         on_bands(oli, "landsat-8-oli", ["B1", "B4"])
+
+
+@pytest.mark.parametrize(
+    "module, topic_modules",
+    [
+        ("unmix.spectra", ["library", "resampling", "similarity", "vegetation_index"]),
+        ("unmix.sensors", ["responses", "catalogue"]),
+        ("unmix.io.library", ["reader", "writer", "responses", "shipped"]),
+        ("unmix.io.products", ["atomic", "cog", "grid_mapping", "netcdf", "provenance"]),
+    ],
+)
+def test_public_names_stay_importable_from_the_split_modules(module, topic_modules):
+    # every public name is still reachable from its old module path and is the object its topic module defines
+    import importlib
+
+    mod = importlib.import_module(module)
+    owners = {}
+    for t in topic_modules:
+        sub = importlib.import_module(f"{module}.{t}")
+        for name in sub.__all__:
+            owners[name] = getattr(sub, name)
+    assert set(mod.__all__) == set(owners)
+    for name in mod.__all__:
+        assert getattr(mod, name) is owners[name], name

@@ -1,0 +1,154 @@
+"""Cloud-Optimized GeoTIFF products: one float32 band per date, written atomically."""
+
+from __future__ import annotations
+
+import contextlib
+import os
+from collections.abc import Mapping
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import xarray as xr
+
+from ...cube.georef import georef_of
+from ...errors import InputError, OutputExistsError
+from .atomic import atomic_path
+from .provenance import _clean_attrs
+
+__all__ = ["write_cog"]
+
+
+def _cog_driver_available() -> bool:
+    import rasterio
+
+    with rasterio.Env() as env:
+        return "COG" in env.drivers()
+
+
+def write_cog(
+    da: xr.DataArray,
+    path: str | os.PathLike,
+    *,
+    overwrite: bool = False,
+    blocksize: int = 512,
+    compress: str = "DEFLATE",
+    resampling: str = "average",
+    tags: Mapping[str, Any] | None = None,
+) -> Path:
+    """Write a (time, y, x) or (y, x) array as a float32 Cloud-Optimized GeoTIFF, atomically.
+
+    One band per date, band descriptions = ISO dates (``YYYY-MM-DD``; for another leading
+    dimension the coordinate values), nodata NaN, tiled, compressed, with overviews. The array is
+    computed block row by block row into a temporary tiled GeoTIFF, which GDAL's ``COG`` driver then
+    copies into the final layout (or, on a GDAL without that driver, the tiled GeoTIFF gets internal
+    overviews and is kept).
+
+    Parameters
+    ----------
+    da : (time, y, x) or (y, x) xarray.DataArray
+        Georeferenced by a ``spatial_ref`` coordinate or ``crs_wkt`` / ``transform`` attributes (or
+        regular ``x``/``y`` coordinates, then without CRS).
+    path : path
+        Destination ``.tif``.
+    overwrite : bool
+        Replace an existing file (else :class:`~unmix.errors.OutputExistsError`, file untouched).
+    blocksize : int
+        Tile size [pixels].
+    compress : str
+        GDAL compression name.
+    resampling : str
+        Overview resampling (GDAL name).
+    tags : mapping, optional
+        Dataset tags (provenance) to store in the file.
+
+    Returns
+    -------
+    pathlib.Path
+
+    Examples
+    --------
+    >>> import tempfile, pathlib, numpy as np, xarray as xr
+    >>> da = xr.DataArray(np.zeros((1, 4, 4), "float32"), dims=("time", "y", "x"),
+    ...                   coords={"time": np.array(["2020-05-01"], "datetime64[ns]"),
+    ...                           "y": [3.5, 2.5, 1.5, 0.5], "x": [0.5, 1.5, 2.5, 3.5]})
+    >>> out = write_cog(da, pathlib.Path(tempfile.mkdtemp()) / "f.tif")
+    """
+    import rasterio
+    import rasterio.shutil
+    from affine import Affine
+    from rasterio.enums import Resampling
+
+    path = Path(path)
+    if path.exists() and not overwrite:
+        raise OutputExistsError(f"{path} exists already; pass overwrite=True (--overwrite) to replace it")
+    if da.ndim == 2:
+        da = da.expand_dims("band")
+    if da.ndim != 3 or da.dims[1:] != ("y", "x"):
+        raise InputError(f"write_cog needs dims (time, y, x) or (y, x), got {da.dims}; select one endmember first")
+    lead = da.dims[0]
+    if lead in da.coords:
+        values = da[lead].values
+        if np.issubdtype(values.dtype, np.datetime64):
+            descriptions = [str(np.datetime_as_string(v, unit="D")) for v in values]
+        else:
+            descriptions = [str(v) for v in values]
+    else:
+        descriptions = [f"{lead} {i + 1}" for i in range(da.shape[0])]
+    wkt, transform = georef_of(da)
+    n, height, width = (int(s) for s in da.shape)
+    profile = {
+        "driver": "GTiff",
+        "width": width,
+        "height": height,
+        "count": n,
+        "dtype": "float32",
+        "nodata": float("nan"),
+        "tiled": True,
+        "blockxsize": blocksize,
+        "blockysize": blocksize,
+        "compress": compress,
+        "predictor": 3,
+        "BIGTIFF": "IF_SAFER",
+    }
+    if wkt is not None:
+        profile["crs"] = rasterio.crs.CRS.from_wkt(wkt)
+    if transform is not None:
+        profile["transform"] = Affine(*transform)
+    clean_tags = {k: str(v) for k, v in _clean_attrs(dict(tags or {})).items()}
+    use_cog = _cog_driver_available()
+
+    with atomic_path(path, overwrite=overwrite) as tmp:
+        stage = tmp.with_name(tmp.name + ".stage.tif") if use_cog else tmp
+        try:
+            with rasterio.open(stage, "w", **profile) as dst:
+                for i, text in enumerate(descriptions, start=1):
+                    dst.set_band_description(i, text)
+                if clean_tags:
+                    dst.update_tags(**clean_tags)
+                step = blocksize * max(1, 2048 // blocksize)
+                for row in range(0, height, step):
+                    rows = slice(row, min(height, row + step))
+                    block = np.asarray(da[:, rows, :].values, dtype="float32")
+                    dst.write(block, window=rasterio.windows.Window(0, row, width, block.shape[1]))
+                if not use_cog:
+                    factors = [f for f in (2, 4, 8, 16, 32) if min(height, width) // f >= blocksize // 2]
+                    if factors:
+                        dst.build_overviews(factors, getattr(Resampling, resampling))
+            if use_cog:
+                rasterio.shutil.copy(
+                    stage,
+                    tmp,
+                    driver="COG",
+                    BLOCKSIZE=blocksize,
+                    COMPRESS=compress,
+                    PREDICTOR="YES",
+                    OVERVIEWS="AUTO",
+                    RESAMPLING=resampling.upper(),
+                    BIGTIFF="IF_SAFER",
+                )
+        finally:
+            if use_cog:
+                with contextlib.suppress(OSError):
+                    Path(stage).unlink()
+    return path
