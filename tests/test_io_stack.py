@@ -254,6 +254,44 @@ def test_netcdf_cube(make_netcdf_stack):
         open_stack(info.files[0], band_names=BANDS[:4])
 
 
+def test_netcdf_read_failure_during_compute_is_a_stack_read_error(make_netcdf_stack):
+    info = make_netcdf_stack()
+    path = info.files[0]
+    cube = open_stack(path)
+    pickle.loads(pickle.dumps(dict(cube.data.__dask_graph__())))  # still a graph process workers can take
+    size = path.stat().st_size
+    with open(path, "r+b") as fh:  # truncated after the stack was opened, before anything was read
+        fh.truncate(size // 2)
+    with pytest.raises(StackReadError, match=rf"{path.name}.*truncated"):
+        cube.compute(scheduler="threads")
+
+
+def test_netcdf_cube_has_one_grid_so_align_is_a_no_op(make_netcdf_stack):
+    info = make_netcdf_stack()
+    plain = open_stack(info.files[0]).values
+    aligned = open_stack(info.files[0], align=True).values
+    np.testing.assert_array_equal(aligned, plain)  # nothing to warp: one grid for every date
+
+
+def test_netcdf_cube_must_lie_on_a_given_reference_grid(make_netcdf_stack, write_geotiff):
+    info = make_netcdf_stack()
+    h, w = info.reflectance.shape[2:]
+    same = write_geotiff(info.folder / "same.tif", np.zeros((1, h, w), np.int16), transform=info.transform)
+    other = write_geotiff(info.folder / "other.tif", np.zeros((1, h, w), np.int16),
+                          transform=Affine(30.0, 0.0, 500030.0, 0.0, -30.0, 4100000.0))  # one pixel east
+    # a reference on another grid is refused, not silently ignored
+    with pytest.raises(GridMismatchError, match=r"cube\.nc.*other\.tif.*transform"):
+        open_stack(info.files[0], align=True, reference=other)
+    cube = open_stack(info.files[0], align=True, reference=same)
+    np.testing.assert_allclose(cube.values, info.reflectance, rtol=0, atol=0)
+
+
+def test_netcdf_cube_dates_come_from_its_time_coordinate(make_netcdf_stack):
+    info = make_netcdf_stack()
+    with pytest.raises(InputError, match="time coordinate"):
+        open_stack(info.files[0], dates=["2020-01-01"] * len(info.dates))
+
+
 # --------------------------------------------------------------------------------------------------
 # decoding into band-last chunks
 
@@ -270,7 +308,7 @@ def _decode_reference(raw, scales, offsets, nodata):
 @pytest.mark.parametrize("dtype", ["int16", "uint16", "float32"])
 @pytest.mark.parametrize("uniform", [True, False])
 def test_decode_bands_last_equals_numpy_decode(dtype, uniform):
-    from unmix.io._stack_numba import decode_bands, decode_bands_last
+    from unmix.io.stack._numba import decode_bands, decode_bands_last
 
     rng = np.random.default_rng(3)
     for case in range(4):
