@@ -20,11 +20,19 @@ Fixtures
 from __future__ import annotations
 
 import datetime as dt
+import os
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 import pytest
+from hypothesis import settings
+
+# Property tests draw the same examples on every run (CI must not turn red by chance); set
+# HYPOTHESIS_PROFILE=explore for fresh random examples when hunting for bugs locally.
+settings.register_profile("ci", derandomize=True, database=None)
+settings.register_profile("explore")
+settings.load_profile(os.environ.get("HYPOTHESIS_PROFILE", "ci"))
 
 #: Band names the fixture files hold (Landsat 8 OLI B2-B7).
 BANDS = ("B2", "B3", "B4", "B5", "B6", "B7")
