@@ -17,8 +17,6 @@ import pytest
 import rasterio
 import xarray as xr
 from affine import Affine
-from hypothesis import given, settings
-from hypothesis import strategies as st
 
 from unmix.errors import OutputExistsError
 from unmix.io.products import CAUTION, open_product, write_cog, write_netcdf
@@ -294,44 +292,6 @@ def test_failure_after_some_chunks_leaves_no_file(tmp_path, complevel):
     assert _chunked_writer._HANDLES == {}  # and no file handle left open
 
 
-def _planes(kind, n, rng):
-    if kind == "random":
-        return rng.integers(0, 256, n).astype(np.uint8)
-    if kind == "constant":
-        return np.full(n, 7, np.uint8)
-    if kind == "ramp":  # looks uniform byte by byte, but repeats: only match search finds it
-        return (np.arange(n) % 256).astype(np.uint8)
-    return rng.choice(np.array([0x3E, 0x3F, 0x7F], np.uint8), size=n, p=[0.6, 0.35, 0.05])  # exponent-like
-
-
-@pytest.mark.parametrize("level", [1, 3, 4, 9])
-@pytest.mark.parametrize(
-    "layout",
-    [
-        [("random", 262144), ("random", 262144), ("skewed", 262144), ("skewed", 262144)],  # float32 chunk
-        [("random", 65535), ("constant", 65536), ("ramp", 200001)],  # stored-block edges (65535 bytes)
-        [("skewed", 10)],  # shorter than the trial sample
-        [("random", 1)],
-        [("constant", 0), ("random", 5)],
-        [],
-    ],
-)
-def test_zlib_stream_is_standard_zlib(level, layout):
-    from unmix.io._deflate import zlib_stream
-
-    rng = np.random.default_rng(level)
-    segments = [_planes(kind, n, rng) for kind, n in layout]
-    stream = zlib_stream(segments, level)
-    # the reference decoder: the zlib library's inflate, as HDF5's deflate filter uses it (RFC 1950/1951)
-    assert zlib.decompress(stream) == b"".join(s.tobytes() for s in segments)
-    raw = sum(s.size for s in segments)
-    if layout and all(kind == "random" for kind, _ in layout):
-        # incompressible planes are copied into stored blocks: 5 bytes per 64 KiB + 6 bytes of zlib frame
-        assert len(stream) <= raw + 5 * (raw // 65535 + len(layout)) + 6
-    if raw > 100000 and any(kind in ("constant", "skewed") for kind, _ in layout):
-        assert len(stream) < 0.9 * raw  # compressible planes are compressed
-
-
 def test_chunk_target_bytes_decode_like_hdf5(tmp_path):
     """An h5py dataset (HDF5 compresses) and our direct chunks read back the same through HDF5."""
     h5py = pytest.importorskip("h5py")
@@ -355,64 +315,6 @@ def test_chunk_target_bytes_decode_like_hdf5(tmp_path):
     with h5py.File(path, "r") as f:
         np.testing.assert_array_equal(f["ours"][...], data)
         np.testing.assert_array_equal(f["ours"][...], f["ref"][...])
-
-
-def _fibonacci_plane(rng):
-    """Byte counts in Fibonacci proportion: the most skewed counts, so the deepest Huffman codes."""
-    counts = [1, 1]
-    while len(counts) < 26:
-        counts.append(counts[-1] + counts[-2])
-    plane = np.repeat(np.arange(len(counts), dtype=np.uint8), counts)
-    return rng.permutation(plane)
-
-
-@pytest.mark.parametrize("limit", [7, 10, 15])
-def test_huffman_code_lengths_respect_the_limit(limit):
-    from unmix.io._deflate import _huffman_lengths
-
-    plane = _fibonacci_plane(np.random.default_rng(0))
-    freq = np.bincount(plane, minlength=257).astype(np.int64)
-    freq[256] = 1  # end of block
-    unlimited = _huffman_lengths(freq, 64)
-    lengths = _huffman_lengths(freq, limit)
-    # Kraft's inequality (a prefix code exists) and the length limit (RFC 1951: 15 bits for literals)
-    for code in (unlimited, lengths):
-        assert np.sum(2.0 ** -code[code > 0].astype(float)) <= 1.0
-        assert ((code > 0) == (freq > 0)).all()
-    assert lengths.max() <= limit
-    # optimality of the unlimited code: no worse than the limited one, and within 1 bit of the entropy (Shannon)
-    p = freq[freq > 0] / freq.sum()
-    entropy = -np.sum(p * np.log2(p)) * freq.sum()
-    assert entropy <= np.sum(freq * unlimited) <= np.sum(freq * lengths)
-    assert np.sum(freq * unlimited) < entropy + freq.sum()
-
-
-@pytest.mark.parametrize("level", [1, 6])
-def test_zlib_stream_of_skewed_bytes(level):
-    from unmix.io._deflate import zlib_stream
-
-    rng = np.random.default_rng(0)
-    plane = _fibonacci_plane(rng)
-    tail = rng.integers(0, 256, 1000).astype(np.uint8)
-    stream = zlib_stream([plane, tail], level)
-    assert zlib.decompress(stream) == plane.tobytes() + tail.tobytes()  # reference: zlib's inflate
-    assert len(stream) < 0.5 * plane.size  # under 2 bits per byte: the skew is used
-
-
-@settings(max_examples=40, deadline=None)
-@given(
-    sizes=st.lists(st.integers(0, 70000), min_size=1, max_size=4),
-    alphabet=st.integers(1, 256),
-    level=st.sampled_from([1, 2, 3, 5]),
-    seed=st.integers(0, 2**32 - 1),
-)
-def test_zlib_stream_round_trips(sizes, alphabet, level, seed):
-    from unmix.io._deflate import zlib_stream
-
-    rng = np.random.default_rng(seed)
-    segments = [rng.integers(0, alphabet, n).astype(np.uint8) for n in sizes]
-    # reference decoder: the zlib library (RFC 1950 / 1951)
-    assert zlib.decompress(zlib_stream(segments, level)) == b"".join(s.tobytes() for s in segments)
 
 
 def test_unexpected_filter_pipeline_falls_back_to_hdf5(tmp_path):
