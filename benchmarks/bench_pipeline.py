@@ -6,7 +6,8 @@ mixed from three endmembers, then
 1. runs ``unmix fractions`` end to end in a subprocess (read -> unmix -> CF-NetCDF), polling the
    resident memory of the subprocess and its children with psutil;
 2. runs :func:`unmix.solvers.estimate_fractions` alone, in this process, on in-memory float32 arrays
-   of the same values (a few dates of the same stack, band last);
+   of the same values (a few dates of the same stack, band last), right before and right after each
+   end-to-end run, and compares the run with the mean of the two;
 
 and prints pixel-dates per second, their ratio, and peak memory for a short and the full stack.
 
@@ -127,13 +128,10 @@ def startup_seconds(repeats: int = 2) -> float:
     return best
 
 
-def kernel_only_rate(files: list[Path], n_dates: int, repeats: int = 2) -> tuple[float, float, int]:
-    """Pixel-dates per wall second and per CPU second of estimate_fractions on in-memory float32 of the same files."""
+def load_kernel_data(files: list[Path], n_dates: int) -> np.ndarray:
+    """The first ``n_dates`` dates as in-memory float32 reflectance (t, y, x, band), NaN = no data."""
     import rasterio
 
-    from unmix.solvers import estimate_fractions
-
-    M = np.array(list(ENDMEMBERS.values()), dtype=np.float64)
     arrays = []
     for f in files[:n_dates]:
         with rasterio.open(f) as src:
@@ -141,7 +139,14 @@ def kernel_only_rate(files: list[Path], n_dates: int, repeats: int = 2) -> tuple
         refl = raw.astype(np.float32) * np.float32(1e-4)
         refl[raw == -9999] = np.nan
         arrays.append(np.ascontiguousarray(np.moveaxis(refl, 0, -1)))
-    x = np.stack(arrays)  # (t, y, x, band)
+    return np.stack(arrays)
+
+
+def kernel_only_rate(x: np.ndarray, repeats: int = 2) -> tuple[float, float]:
+    """Pixel-dates per wall second and per CPU second of estimate_fractions on in-memory ``x`` (best of ``repeats``)."""
+    from unmix.solvers import estimate_fractions
+
+    M = np.array(list(ENDMEMBERS.values()), dtype=np.float64)
     estimate_fractions(x[:1, :64, :64], M)  # compile / warm up
     best, best_cpu = np.inf, np.inf
     for _ in range(repeats):
@@ -150,7 +155,7 @@ def kernel_only_rate(files: list[Path], n_dates: int, repeats: int = 2) -> tuple
         best = min(best, time.perf_counter() - t0)
         best_cpu = min(best_cpu, time.process_time() - c0)
     pixel_dates = int(np.prod(x.shape[:3]))
-    return pixel_dates / best, pixel_dates / best_cpu, pixel_dates
+    return pixel_dates / best, pixel_dates / best_cpu
 
 
 def _met(ok: bool) -> str:
@@ -185,9 +190,10 @@ def main(argv: list[str] | None = None) -> None:
           f"prepared in {time.perf_counter() - t0:.0f} s)")
     print(f"machine: {os.cpu_count()} cores, load average {os.getloadavg()[0]:.1f} at start (shared machine)")
 
-    k_rate, k_cpu_rate, k_px = kernel_only_rate(files, min(args.kernel_dates, n_max))
-    print(f"kernel only: estimate_fractions on {k_px:,} in-memory pixel-dates: {k_rate:,.0f} pixel-dates/s "
-          f"(wall), {k_cpu_rate:,.0f} per CPU second")
+    x = load_kernel_data(files, min(args.kernel_dates, n_max))
+    print(f"kernel only: estimate_fractions on {int(np.prod(x.shape[:3])):,} in-memory pixel-dates, measured right "
+          "before and right after each end-to-end run (this virtual machine's speed drifts by up to 2x within "
+          "minutes, so each run is compared with the kernel's rate at that time)")
 
     startup = startup_seconds()
     print(f"start-up: python + import of the command: {startup:.1f} s (included in the e2e wall time)")
@@ -200,10 +206,15 @@ def main(argv: list[str] | None = None) -> None:
             sub.mkdir()
             for f in files[:n]:
                 os.symlink(f, sub / f.name)
+            before = kernel_only_rate(x)
             seconds, cpu, peak, summary = run_end_to_end(sub, library, Path(tmp) / f"out_{n}", extra)
+            after = kernel_only_rate(x)
+            k_rate, k_cpu_rate = (before[0] + after[0]) / 2, (before[1] + after[1]) / 2
             px = args.size * args.size * n
             rows.append((n, seconds, px / seconds, px / seconds / k_rate, px / cpu / k_cpu_rate, peak))
             print(f"  {summary}")
+            print(f"  kernel only: {before[0]:,.0f} before, {after[0]:,.0f} after pixel-dates/s (wall); "
+                  f"{before[1]:,.0f} / {after[1]:,.0f} per CPU second")
     print()
     print("e2e = `unmix fractions` subprocess (start-up, read, unmix, write NetCDF); kernel = estimate_fractions")
     print(f"{'dates':>5} {'wall s':>8} {'pixel-dates/s':>14} {'e2e/kernel':>10} {'e2e/kernel':>10} {'e2e/kernel':>12} "

@@ -103,13 +103,17 @@ class SchedulerContext:
         if progress is None:
             progress = show_progress_default()
         if self.client is None:
+            # the threaded scheduler passed as a function: the string "threads" makes dask look for
+            # a distributed client first, which imports distributed (a quarter second per run)
+            import dask.threaded
+
             if progress:
                 from dask.diagnostics import ProgressBar
 
                 with ProgressBar(out=sys.stderr, dt=0.5):
-                    results = dask.compute(*collections, scheduler="threads")
+                    results = dask.compute(*collections, scheduler=dask.threaded.get)
             else:
-                results = dask.compute(*collections, scheduler="threads")
+                results = dask.compute(*collections, scheduler=dask.threaded.get)
         else:
             futures = self.client.compute(list(collections))
             if progress:

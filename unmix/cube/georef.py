@@ -6,8 +6,6 @@ from __future__ import annotations
 import numpy as np
 import xarray as xr
 
-from ..trajectory import pixel_area
-
 __all__ = ["georef_of", "pixel_area_m2", "transform_from_coords"]
 
 
@@ -59,4 +57,6 @@ def pixel_area_m2(ds) -> tuple[float, str]:
                 return float("nan"), "geographic CRS (degrees): reproject to a projected CRS for areas"
         except Exception:  # an unreadable WKT: fall back to assuming metres
             pass
+    from ..trajectory.areas import pixel_area
+
     return pixel_area(transform), "pixel area from the grid transform, map units taken as metres"

@@ -37,6 +37,7 @@ from __future__ import annotations
 
 import contextlib
 import itertools
+import sys
 import threading
 from collections.abc import Iterator, Mapping
 from pathlib import Path
@@ -68,6 +69,8 @@ def _h5_open(path: str, mode: str) -> Any:
 
 
 def _in_distributed_worker() -> bool:
+    if "distributed" not in sys.modules:  # never imported: this cannot be a distributed worker
+        return False
     try:
         from distributed import get_worker
 
