@@ -237,7 +237,7 @@ def main() -> None:
             ref_rate = n_ref / t_ref / 1e6 if np.isfinite(t_ref) else np.nan
             ratio = ours_rate / ref_rate if np.isfinite(ref_rate) else np.nan
             print(f"{n_bands:>5} {method:>7} {ours_rate:>11.2f} {t:>8.2f} {ref_rate:>10.2f} {ratio:>7.1f}  {note}")
-        del x
+        x = None  # free the pixels before the next band count
     print("ppi reference rate is for the counting step alone (1000 skewers, 5 dims); ours is the "
           "whole method (PCA, counting, merging).")
 

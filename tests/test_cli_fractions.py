@@ -13,11 +13,10 @@ import numpy as np
 import pytest
 import rasterio
 from affine import Affine
+from conftest import BANDS, ENDMEMBERS, NODATA
 
 from unmix.cli.main import main
 from unmix.io.products import open_product
-
-from conftest import BANDS, ENDMEMBERS, NODATA
 
 
 def run(args, capsys):

@@ -14,11 +14,10 @@ import numpy as np
 import pytest
 import rasterio
 from affine import Affine
+from conftest import BANDS, CRS, NODATA
 
 from unmix.errors import BandMismatchError, GridMismatchError, InputError, StackReadError, UnknownNameError
 from unmix.io.stack import date_from_name, open_stack, read_dates_csv
-
-from conftest import BANDS, CRS, NODATA
 
 
 def test_folder_int16_scaled_reads_lazily_as_float32_reflectance(make_stack):

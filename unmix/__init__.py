@@ -20,10 +20,9 @@ try:
 except PackageNotFoundError:  # running from a source tree that was not installed
     __version__ = "0+unknown"
 
-from .solvers import estimate_fractions, kkt_residual, shade_normalize  # noqa: E402
-
-# ``unmix.mesma`` is the function; its module stays importable as ``import unmix.mesma`` /
-# ``from unmix.mesma import MesmaResult`` (the import system finds it in sys.modules).
+# ``unmix.mesma`` is the function; its package stays importable as ``from unmix.mesma import
+# MesmaResult`` (the import system finds it in sys.modules).
 from .mesma import mesma  # noqa: E402
+from .solvers import estimate_fractions, kkt_residual, shade_normalize  # noqa: E402
 
 __all__ = ["__version__", "estimate_fractions", "kkt_residual", "mesma", "shade_normalize"]
