@@ -190,3 +190,24 @@ def test_corrupt_tile_is_a_stack_read_error_naming_file_date_rows_columns(tmp_pa
     path.write_bytes(path.read_bytes()[: head.tiles.offsets[k] + 5])
     with pytest.raises(StackReadError, match=r"scene_2020-03-04\.tif \(date 2020-03-04\).*cut short"):
         cube.compute(scheduler="sync")
+
+
+def test_block_reads_without_pread_give_the_same_bytes(tmp_path, monkeypatch):
+    # reference: the same file read by position with os.pread (POSIX); Windows has no pread, so the
+    # reader falls back to lseek + read on its own descriptor
+    import os
+
+    from unmix.io.stack import _tiff_tiles
+
+    path = tmp_path / "bytes.bin"
+    payload = bytes(range(256)) * 1000
+    path.write_bytes(payload)
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        expected = [os.pread(fd, 5000, 1234), os.pread(fd, 10_000, len(payload) - 100)]
+        monkeypatch.delattr(os, "pread")
+        got = [_tiff_tiles._pread(fd, 5000, 1234), _tiff_tiles._pread(fd, 10_000, len(payload) - 100)]
+    finally:
+        os.close(fd)
+    assert got == expected
+    assert got[1] == payload[-100:]

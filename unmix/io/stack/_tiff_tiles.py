@@ -203,7 +203,7 @@ def read_window(
     scratch = np.empty(row_len, value_dtype)  # one predictor-undone block row
     scratch_bytes = np.empty(row_bytes, np.uint8) if layout.predictor == 3 else np.empty(0, np.uint8)
     n_per_band = layout.n_rows * layout.n_cols
-    fd = os.open(path, os.O_RDONLY)
+    fd = os.open(path, os.O_RDONLY | getattr(os, "O_BINARY", 0))  # O_BINARY: Windows
     try:
         for i in range(row0 // layout.block_h, (row1 - 1) // layout.block_h + 1):
             top = i * layout.block_h
@@ -238,7 +238,7 @@ def _block_bytes(fd: int, layout: TileLayout, k: int, expected: int, full: int, 
     offset, count = layout.offsets[k], layout.counts[k]
     i, j, plane = where
     name = f"{'strip' if layout.strips else 'tile'} ({i}, {j}) of band {plane + 1}"
-    data = os.pread(fd, count, offset)
+    data = _pread(fd, count, offset)
     if len(data) < count:
         raise ValueError(f"{name} is cut short ({len(data)} of {count} bytes at byte {offset})")
     if layout.compression != 1:
@@ -252,3 +252,17 @@ def _block_bytes(fd: int, layout: TileLayout, k: int, expected: int, full: int, 
         raise ValueError(f"{name} holds {len(data)} bytes, {expected} expected")
     return data
 
+
+def _pread(fd: int, count: int, offset: int) -> bytes:
+    """``count`` bytes at ``offset`` (fewer only at the end of the file); each task has its own ``fd``."""
+    if hasattr(os, "pread"):  # POSIX: no shared file position
+        return os.pread(fd, count, offset)
+    os.lseek(fd, offset, os.SEEK_SET)  # Windows has no pread; the descriptor is this task's alone
+    parts, left = [], count
+    while left > 0:
+        piece = os.read(fd, left)
+        if not piece:
+            break
+        parts.append(piece)
+        left -= len(piece)
+    return b"".join(parts)
