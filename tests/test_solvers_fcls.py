@@ -1,86 +1,28 @@
-"""Tests of unmix.solvers: exact (constrained) least-squares unmixing.
+"""Tests of unmix.solvers.estimate_fractions: non-negative and fully constrained least squares.
 
 References used below (named beside each check):
 - cvxpy (general-purpose convex solver, CLARABEL interior point) on the same problems;
 - scipy.optimize.nnls (Lawson-Hanson NNLS) on the endmember matrix, and on the matrix with a heavily
   weighted row of ones appended for FCLS (the sum-to-one augmentation of Heinz & Chang 2001);
-- numpy.linalg.lstsq for the unconstrained problem; the closed form of Heinz & Chang (2001) for
-  sum-to-one (CHECKS.md "Linear unmixing");
 - a slow, obvious exact reference in this file: enumerate every support, solve the equality-
-  constrained least squares there and keep the best feasible one (exact for a strictly convex QP);
-- CHECKS.md values for shade normalisation.
+  constrained least squares there and keep the best feasible one (exact for a strictly convex QP).
 """
 
 from __future__ import annotations
 
 import itertools
-import warnings
 import zlib
 
 import cvxpy as cp
 import numpy as np
 import pytest
-from hypothesis import HealthCheck, assume, given, settings
+from _solvers_helpers import ALL, _cond, _draw_problem, make_endmembers, make_pixels, objective
+from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from scipy.optimize import nnls
 
 from unmix import solvers
-from unmix.errors import (
-    BandMismatchError,
-    CollinearityWarning,
-    InputError,
-    RankError,
-    ShapeError,
-    UnknownNameError,
-)
-from unmix.solvers import (
-    Constraint,
-    check_endmembers,
-    estimate_fractions,
-    kkt_residual,
-    shade_normalize,
-)
-
-ALL = ["none", "sum-to-one", "non-negative", "fcls"]
-
-
-# ------------------------------------------------------------------------------------------------
-# helpers: generated problems and outside references
-# ------------------------------------------------------------------------------------------------
-
-
-def _cond(M, w=None, sum_to_one=True):
-    A = M.T if w is None else M.T * np.sqrt(w)[:, None]
-    if sum_to_one and M.shape[0] > 1:
-        Z = np.linalg.svd(np.ones((1, M.shape[0])))[2][1:].T
-        A = A @ Z
-    s = np.linalg.svd(A, compute_uv=False)
-    return s[0] / s[-1]
-
-
-def make_endmembers(rng, p, nb, max_cond=200.0):
-    """Reflectance-like endmembers (0.02..0.7), redrawn until well conditioned under every constraint."""
-    for _ in range(1000):
-        M = rng.uniform(0.02, 0.7, (p, nb))
-        if p <= nb and _cond(M, sum_to_one=False) < max_cond or p == nb + 1 and _cond(M) < max_cond:
-            return M
-    raise AssertionError("could not draw well-conditioned endmembers")
-
-
-def make_pixels(rng, M, n, spread=1.0, noise=0.01):
-    """Mixtures: Dirichlet fractions stretched by ``spread`` around the centre, so spread > 1 puts part
-    of the pixels outside the simplex; plus Gaussian noise."""
-    p, nb = M.shape
-    a = rng.dirichlet(np.ones(p), size=n)
-    a = (a - 1.0 / p) * spread + 1.0 / p
-    return a @ M + rng.normal(0.0, noise, (n, nb))
-
-
-def objective(x, M, a, w=None):
-    r = x - a @ M
-    if w is not None:
-        r = r * np.sqrt(w)
-    return 0.5 * np.sum(r * r, axis=-1)
+from unmix.solvers import Constraint, estimate_fractions, kkt_residual
 
 
 def cvxpy_solve(x, M, con, w=None):
@@ -135,51 +77,6 @@ def exact_reference(x, M, con, w=None):
         best[take] = f[take]
         out[take] = a[take]
     return out
-
-
-# ------------------------------------------------------------------------------------------------
-# unconstrained and sum-to-one: closed forms
-# ------------------------------------------------------------------------------------------------
-
-
-@pytest.mark.parametrize("p,nb", [(2, 3), (3, 6), (4, 7), (5, 200), (10, 12)])
-def test_none_matches_lstsq(p, nb):
-    rng = np.random.default_rng(p * 100 + nb)
-    M = make_endmembers(rng, p, nb)
-    x = make_pixels(rng, M, 50, spread=4.0, noise=0.05)
-    f, rmse = estimate_fractions(x, M, constraint="none")
-    # numpy.linalg.lstsq on the same problem (Keshava & Mustard 2002: a = (M M^T)^-1 M x)
-    ref = np.linalg.lstsq(M.T, x.T, rcond=None)[0].T
-    np.testing.assert_allclose(f, ref, atol=1e-10, rtol=0)
-    np.testing.assert_allclose(rmse, np.sqrt(np.mean((x - ref @ M) ** 2, axis=1)), rtol=1e-9, atol=1e-13)
-
-
-@pytest.mark.parametrize("p,nb", [(2, 3), (3, 6), (4, 7), (5, 200), (10, 12)])
-def test_sum_to_one_matches_heinz_chang_closed_form(p, nb):
-    rng = np.random.default_rng(7 * p + nb)
-    M = make_endmembers(rng, p, nb)
-    x = make_pixels(rng, M, 50, spread=4.0, noise=0.05)
-    f, _ = estimate_fractions(x, M, constraint="sum-to-one")
-    # Heinz & Chang (2001), CHECKS.md: a = a_LS + (M M^T)^-1 1 (1 - 1^T a_LS) / (1^T (M M^T)^-1 1)
-    Ginv = np.linalg.inv(M @ M.T)
-    a_ls = x @ M.T @ Ginv
-    one = np.ones(p)
-    h = Ginv @ one
-    ref = a_ls + np.outer(1 - a_ls @ one, h) / (one @ h)
-    np.testing.assert_allclose(f, ref, atol=1e-9, rtol=0)
-    np.testing.assert_allclose(f.sum(axis=1), 1.0, atol=1e-12)
-
-
-def test_sum_to_one_with_one_more_endmember_than_bands():
-    # n_endmembers = n_bands + 1 is solvable under sum-to-one (affinely independent endmembers):
-    # an exact mixture must be recovered exactly (common practice / linear algebra).
-    rng = np.random.default_rng(3)
-    M = make_endmembers(rng, 4, 3)
-    a = rng.dirichlet(np.ones(4), size=20)
-    for con in ("sum-to-one", "fcls"):
-        f, rmse = estimate_fractions(a @ M, M, constraint=con)
-        np.testing.assert_allclose(f, a, atol=1e-10)
-        assert np.all(rmse < 1e-12)
 
 
 # ------------------------------------------------------------------------------------------------
@@ -326,19 +223,6 @@ def test_far_outside_the_simplex():
     np.testing.assert_allclose(f[0], [1, 0, 0, 0], atol=1e-12)  # beyond vertex 0: vertex 0 (geometry)
 
 
-# ------------------------------------------------------------------------------------------------
-# properties (hypothesis)
-# ------------------------------------------------------------------------------------------------
-
-
-def _draw_problem(seed, p, extra):
-    rng = np.random.default_rng(seed)
-    nb = p + extra
-    M = rng.uniform(0.02, 0.7, (p, nb))
-    assume(_cond(M, sum_to_one=False) < 100)
-    return rng, M
-
-
 @settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.filter_too_much])
 @given(seed=st.integers(0, 2**32 - 1), p=st.integers(2, 6), extra=st.integers(0, 6))
 def test_fcls_properties(seed, p, extra):
@@ -354,41 +238,6 @@ def test_fcls_properties(seed, p, extra):
     assert np.all(f >= 0)
     np.testing.assert_allclose(f.sum(axis=1), 1.0, atol=1e-12)
     assert np.all(rmse >= 0)
-
-
-@settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.filter_too_much])
-@given(seed=st.integers(0, 2**32 - 1), p=st.integers(2, 6), extra=st.integers(0, 6))
-def test_kkt_residual_zero_at_optimum_and_not_elsewhere(seed, p, extra):
-    rng, M = _draw_problem(seed, p, extra)
-    x = make_pixels(rng, M, 20, spread=4.0, noise=0.05)
-    w = rng.uniform(0.5, 2.0, M.shape[1])
-    for con in ALL:
-        f, _ = estimate_fractions(x, M, constraint=con, weights=w)
-        # optimality: KKT conditions hold (projected-gradient form; Bertsekas 1999, from memory)
-        assert np.all(kkt_residual(x, M, f, constraint=con, weights=w) < 1e-10)
-        # a feasible but different point is not optimal (strictly convex problem): move towards a
-        # random feasible point by 10 % of the way
-        v = rng.dirichlet(np.ones(p), size=len(x))
-        if con == "none" or con == "sum-to-one":
-            v = v + rng.normal(0, 0.5, v.shape)
-            if con == "sum-to-one":
-                v = v - (v.sum(1, keepdims=True) - 1) / p
-        elif con == "non-negative":
-            v = v * rng.uniform(0.5, 2.0, (len(x), 1))
-        moved = f + 0.1 * (v - f)
-        far = np.max(np.abs(moved - f), axis=1) > 1e-3
-        assert np.all(kkt_residual(x, M, moved, constraint=con, weights=w)[far] > 1e-8)
-    # an infeasible point (negative fraction) is flagged under the non-negative constraints
-    f, _ = estimate_fractions(x, M)
-    bad = f.copy()
-    bad[:, 0] -= 0.05
-    bad[:, 1] += 0.05
-    neg = bad[:, 0] < 0
-    # the projection is non-negative, so the residual is at least the negative part (definition)
-    r = kkt_residual(x, M, bad, constraint="fcls")
-    assert np.all(r[neg] >= -bad[neg, 0] * (1 - 1e-9))
-    r = kkt_residual(x, M, np.abs(bad) * 1.5, constraint="fcls")  # sums to more than one
-    assert np.all(r > 1e-3)
 
 
 # ------------------------------------------------------------------------------------------------
@@ -474,162 +323,3 @@ def test_constraint_enum_and_strings():
     b = estimate_fractions(x, M, constraint="non-negative")[0]
     np.testing.assert_array_equal(a, b)
     assert [c.value for c in Constraint] == ["none", "sum-to-one", "non-negative", "fcls"]
-
-
-# ------------------------------------------------------------------------------------------------
-# errors and warnings
-# ------------------------------------------------------------------------------------------------
-
-
-def test_rank_errors():
-    rng = np.random.default_rng(13)
-    M = rng.uniform(0, 1, (5, 4))
-    x = rng.uniform(0, 1, (3, 4))
-    estimate_fractions(x, M, constraint="fcls")  # 5 <= 4 + 1: fine
-    with pytest.raises(RankError, match=r"5 endmembers .* 4 bands .*'none'"):
-        estimate_fractions(x, M, constraint="none")
-    with pytest.raises(RankError, match="n_bands"):
-        estimate_fractions(x, M, constraint="non-negative")
-    M6 = rng.uniform(0, 1, (6, 4))
-    with pytest.raises(RankError, match=r"6 endmembers .* 4 bands .*'fcls' \(at most n_bands \+ 1 = 5\)"):
-        estimate_fractions(x, M6)
-    # two identical endmembers: exactly dependent, named
-    Md = rng.uniform(0, 1, (3, 6))
-    Md[2] = Md[0]
-    with pytest.raises(RankError, match=r"'soil' \(row 0\) and 'sand' \(row 2\)"):
-        check_endmembers(Md, names=["soil", "gv", "sand"])
-    # an all-zero shade endmember: fine with sum-to-one, rank deficient without
-    Ms = np.vstack([rng.uniform(0, 1, (2, 6)), np.zeros(6)])
-    check_endmembers(Ms, constraint="fcls")
-    with pytest.raises(RankError, match="shade"):
-        check_endmembers(Ms, constraint="non-negative")
-    assert issubclass(RankError, ValueError)
-
-
-def test_collinearity_warning_names_the_pair():
-    rng = np.random.default_rng(14)
-    M = rng.uniform(0.05, 0.6, (4, 6))
-    M[3] = M[1] * (1 + rng.normal(0, 1e-5, 6))
-    with pytest.warns(CollinearityWarning, match=r"'npv' \(row 1\) and 'sand' \(row 3\).*condition number"):
-        check_endmembers(M, names=["gv", "npv", "soil", "sand"])
-    with pytest.warns(CollinearityWarning, match=r"row 1 and row 3"):
-        estimate_fractions(rng.uniform(0, 1, (2, 6)), M)
-    with warnings.catch_warnings():
-        warnings.simplefilter("error")
-        check_endmembers(make_endmembers(rng, 4, 6))  # well conditioned: silent
-
-
-def test_input_errors():
-    rng = np.random.default_rng(15)
-    M = make_endmembers(rng, 3, 6)
-    x = rng.uniform(0, 1, (4, 6))
-    with pytest.raises(BandMismatchError, match="7 bands but the endmembers have 6"):
-        estimate_fractions(rng.uniform(0, 1, (4, 7)), M)
-    Mn = M.copy()
-    Mn[1, 4] = np.nan
-    with pytest.raises(InputError, match=r"'dry' \(row 1\) .* band 4"):
-        check_endmembers(Mn, names=["gv", "dry", "soil"])
-    with pytest.raises(InputError, match="row 1 .* band 4"):
-        estimate_fractions(x, Mn)
-    for bad in ([1, 1, 1, 0, 1, 1], [1, 1, np.inf, 1, 1, 1], [1, 1, -2, 1, 1, 1]):
-        with pytest.raises(InputError, match="band 2|band 3"):
-            estimate_fractions(x, M, weights=bad)
-    with pytest.raises(ShapeError, match=r"\(6,\)"):
-        estimate_fractions(x, M, weights=np.ones(5))
-    with pytest.raises(UnknownNameError, match="'none', 'sum-to-one', 'non-negative', 'fcls'"):
-        estimate_fractions(x, M, constraint="lasso")
-    with pytest.raises(KeyError):
-        estimate_fractions(x, M, constraint="lasso")
-    with pytest.raises(ShapeError):
-        estimate_fractions(x, M[0])
-    with pytest.raises(ShapeError):
-        check_endmembers(M, names=["a", "b"])
-    with pytest.raises(ShapeError):
-        kkt_residual(x, M, np.zeros((4, 2)))
-
-
-# ------------------------------------------------------------------------------------------------
-# shade normalisation
-# ------------------------------------------------------------------------------------------------
-
-
-def test_shade_normalize_checks_value():
-    # CHECKS.md "Linear unmixing": GV 0.45, soil 0.25, shade 0.30 -> 0.642857, 0.357143
-    out = shade_normalize(np.array([0.45, 0.25, 0.30]), shade=2)
-    np.testing.assert_allclose(out, [0.642857, 0.357143], atol=5e-7)
-    out = shade_normalize(np.array([0.30, 0.45, 0.25], np.float32), shade=0)
-    assert out.dtype == np.float32
-    np.testing.assert_allclose(out, [0.642857, 0.357143], atol=5e-7)
-    np.testing.assert_allclose(shade_normalize([0.45, 0.25, 0.30], shade=-1), [0.642857, 0.357143], atol=5e-7)
-
-
-def test_shade_normalize_shapes_and_full_shade():
-    f = np.array([[[0.2, 0.3, 0.5], [0.0, 0.0, 1.0]], [[0.1, 0.1, 0.8], [np.nan, 0.5, 0.5]]])
-    out = shade_normalize(f, shade=2)
-    assert out.shape == (2, 2, 2)
-    np.testing.assert_allclose(out[0, 0], [0.4, 0.6])  # 0.2/0.5, 0.3/0.5 (arithmetic)
-    assert np.all(np.isnan(out[0, 1]))  # only shade: undefined
-    assert np.isnan(out[1, 1, 0]) and out[1, 1, 1] == 1.0
-    with pytest.raises(InputError, match="shade index 3"):
-        shade_normalize(f, shade=3)
-    with pytest.raises(InputError):
-        shade_normalize(f, shade="shade")
-
-
-def test_kernel_package_imports_no_upper_layer():
-    # House rule (DEVELOPERS.md, layers): a kernel package imports no xarray/dask/rasterio/click/matplotlib.
-    import subprocess
-    import sys
-
-    code = (
-        "import sys, unmix.solvers.fcls, unmix.solvers.diagnostics, unmix.solvers.shade; "
-        "bad = sorted(m for m in ('xarray', 'dask', 'rasterio', 'click', 'matplotlib') if m in sys.modules); "
-        "print(','.join(bad))"
-    )
-    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
-    assert out.stdout.strip() == ""
-
-
-def test_public_names_stay_importable_from_the_package():
-    # The package split (one topic module per method) keeps every public name at its old place.
-    import importlib
-
-    pkg = importlib.import_module("unmix.solvers")
-    for name in pkg.__all__:
-        obj = getattr(pkg, name)
-        home = getattr(obj, "__module__", None)  # None for the float constants
-        if home is not None:
-            assert home.startswith(pkg.__name__ + ".")
-            assert getattr(importlib.import_module(home), name) is obj
-    from unmix import estimate_fractions as top
-
-    assert top is pkg.estimate_fractions is importlib.import_module("unmix.solvers.fcls").estimate_fractions
-
-
-@settings(max_examples=40, deadline=None)
-@given(seed=st.integers(0, 100_000), n=st.integers(1, 12), bordered=st.booleans())
-def test_shared_dense_solve_matches_numpy(seed, n, bordered):
-    # unmix._gauss_numba.gauss_solve (shared by the FCLS and MESMA kernels) against numpy.linalg.solve
-    # (LAPACK gesv) on random SPD systems, plain or bordered by the sum-to-one row/column as in FCLS.
-    from unmix._gauss_numba import gauss_solve
-
-    rng = np.random.default_rng(seed)
-    B = rng.normal(size=(n + 3, n))
-    K = B.T @ B + 0.1 * np.eye(n)
-    if bordered:
-        K = np.block([[K, np.ones((n, 1))], [np.ones((1, n)), np.zeros((1, 1))]])
-    m = K.shape[0]
-    rhs = rng.normal(size=m)
-    W = np.zeros((m + 2, m + 3))  # larger scratch, as in the kernels
-    W[:m, :m] = K
-    W[:m, m] = rhs
-    assert gauss_solve(W, m, -1.0)
-    np.testing.assert_allclose(W[:m, m], np.linalg.solve(K, rhs), rtol=1e-9, atol=1e-9)
-
-
-def test_shared_dense_solve_reports_a_singular_system():
-    # Two equal rows: elimination leaves a zero pivot, which a non-negative ``tiny`` reports (MESMA's use).
-    from unmix._gauss_numba import gauss_solve
-
-    W = np.array([[1.0, 2.0, 3.0, 1.0], [1.0, 2.0, 3.0, 2.0], [0.0, 1.0, 4.0, 3.0]])
-    assert not gauss_solve(W.copy(), 3, 1e-13 * 4.0)
