@@ -9,22 +9,10 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from _extraction_helpers import smooth_spectra
 
 from unmix.cube.extraction import extract_from_stack, sample_stack
 from unmix.errors import ShapeError
-
-
-def smooth_spectra(n: int, n_bands: int, rng: np.random.Generator) -> np.ndarray:
-    """Random smooth reflectance spectra: an offset plus four Gaussian bumps, clipped to 0.01..0.95."""
-    wl = np.linspace(0.0, 1.0, n_bands)
-    out = np.empty((n, n_bands))
-    for i in range(n):
-        s = np.full(n_bands, rng.uniform(0.05, 0.3))
-        for _ in range(4):
-            s += rng.uniform(0, 0.3) * np.exp(-((wl - rng.uniform(0, 1)) ** 2) / (2 * rng.uniform(0.05, 0.3) ** 2))
-        out[i] = s
-    return np.clip(out, 0.01, 0.95)
-
 
 # ------------------------------------------------------------------------------------------------
 # stacks
