@@ -288,3 +288,22 @@ def test_mesma_refuses_an_unbounded_constraint(make_stack, tmp_path, capsys):
     out_dir = tmp_path / "out"
     code, out, err = run([*base_args(info, library, out_dir), "--mesma", "--constraint", "none"], capsys)
     assert_clean_failure(code, err, out_dir, "--mesma", "fcls")
+
+
+def test_netcdf_cube_input_with_cog(make_netcdf_stack, make_library, tmp_path, capsys):
+    # reference: the fractions the fixture mixed (outside the package) and the NetCDF product itself
+    info = make_netcdf_stack()
+    out = tmp_path / "out"
+    args = [info.files[0], "--library", make_library(), "--sensor", "landsat-8-oli", "--out", out, "--cog"]
+    code, _, err = run(args, capsys)
+    assert code == 0, err
+    product = open_product(out / "fractions.nc")
+    got = product["fractions"].sel(endmember=list(info.names)).values
+    truth = info.fractions
+    finite = np.isfinite(got)
+    assert not finite[0, :, 2, 3].any()  # the NaN pixel of the cube stays no data
+    np.testing.assert_allclose(got[finite], truth[finite], atol=2e-3)
+    with rasterio.open(out / f"fractions_{info.names[0]}.tif") as src:
+        assert src.crs == rasterio.crs.CRS.from_user_input(info.crs)
+        np.testing.assert_array_equal(src.read(), product["fractions"].sel(endmember=info.names[0]).values)
+    product.close()
