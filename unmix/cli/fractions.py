@@ -87,19 +87,20 @@ def _command_line(ctx: click.Context) -> str:
 @overwrite_option
 @click.option("--align", is_flag=True, default=False,
               help="Warp dates on another grid (CRS, pixel grid or size) onto the first date's grid instead "
-                   "of stopping.")
+                   "of stopping. A NetCDF cube has one grid: nothing to warp.")
 @click.option("--resampling", type=click.Choice([r.value for r in Resampling]),
               default="nearest", show_default=True, help="Resampling used by --align.")
 @click.option("--dates", "dates", type=click.Path(path_type=Path), default=None, metavar="CSV",
               help="CSV with columns file,date (YYYY-MM-DD). Default: dates read from the file names "
-                   "(YYYY-MM-DD, YYYYMMDD or YYYYDDD).")
+                   "(YYYY-MM-DD, YYYYMMDD or YYYYDDD). Not for a NetCDF cube, whose time coordinate gives them.")
 @click.option("--scale", type=float, default=None,
               help="Reflectance = stored value x SCALE + OFFSET (e.g. 0.0001 for int16 reflectance). "
                    "Default: the files' own scale, else 1.")
 @click.option("--offset", type=float, default=None, help="See --scale. Default: the files' own offset, else 0.")
 @click.option("--qa", "qa", default=None, metavar="BAND|PATH",
               help="Quality mask: a band of the files (number from 1, or its description) or a folder of "
-                   "per-date mask files with the date in their names.")
+                   "per-date mask files with the date in their names; for a NetCDF cube, a band name or a "
+                   "(time, y, x) variable.")
 @click.option("--qa-bits", "qa_bits", default=None, metavar="1,3,...",
               help="QA bit positions (0 = least significant) that mark a pixel invalid. Default with --qa: "
                    "any non-zero QA value.")
