@@ -55,6 +55,16 @@ def _unmix_block(block: np.ndarray, endmembers: np.ndarray, constraint: str, wei
     return fractions.astype(np.float32, copy=False), rmse.astype(np.float32, copy=False)
 
 
+def reflectance_cube(cube: Any, caller: str) -> xr.DataArray:
+    """``cube`` as a (time, band, y, x) DataArray, or InputError / ShapeError naming ``caller``."""
+    if not isinstance(cube, xr.DataArray):
+        raise InputError(f"{caller} needs an xarray.DataArray, got {type(cube).__name__}")
+    missing = [d for d in ("time", "band", "y", "x") if d not in cube.dims]
+    if missing:
+        raise ShapeError(f"the cube needs dims (time, band, y, x); missing {missing}, has {cube.dims}")
+    return cube.transpose("time", "band", "y", "x")
+
+
 def unmix_cube(
     cube: xr.DataArray,
     endmembers: Any,
@@ -120,12 +130,7 @@ def unmix_cube(
     >>> round(float(ds.fractions.sel(endmember="gv").values[0, 0, 0]), 4)
     0.7
     """
-    if not isinstance(cube, xr.DataArray):
-        raise InputError(f"unmix_cube needs an xarray.DataArray, got {type(cube).__name__}")
-    missing = [d for d in ("time", "band", "y", "x") if d not in cube.dims]
-    if missing:
-        raise ShapeError(f"the cube needs dims (time, band, y, x); missing {missing}, has {cube.dims}")
-    cube = cube.transpose("time", "band", "y", "x")
+    cube = reflectance_cube(cube, "unmix_cube")
     names = tuple(str(n) for n in names)
     band_labels = [str(b) for b in cube["band"].values] if "band" in cube.coords else None
 

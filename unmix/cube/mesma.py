@@ -14,8 +14,8 @@ import numpy as np
 import xarray as xr
 
 from .. import __version__
-from ..errors import InputError, ShapeError
 from ..mesma import MesmaConstraint, _check_limits, _constraint, _prepare_models, _run_mesma
+from .fractions import reflectance_cube
 
 __all__ = ["mesma_cube"]
 
@@ -93,12 +93,7 @@ def mesma_cube(
     >>> round(ds.fractions.sel(endmember="shade").values[0, 0, 0].item(), 4)
     0.1
     """
-    if not isinstance(cube, xr.DataArray):
-        raise InputError(f"mesma_cube needs an xarray.DataArray, got {type(cube).__name__}")
-    missing = [d for d in ("time", "band", "y", "x") if d not in cube.dims]
-    if missing:
-        raise ShapeError(f"the cube needs dims (time, band, y, x); missing {missing}, has {cube.dims}")
-    cube = cube.transpose("time", "band", "y", "x")
+    cube = reflectance_cube(cube, "mesma_cube")
     limits = _check_limits(max_rmse, fraction_bounds, max_shade, min_rmse_gain)
     cons = _constraint(constraint)
     # built and checked once here: errors and warnings surface before any chunk is computed
