@@ -45,9 +45,9 @@ from typing import Any
 
 import numpy as np
 
-from ._deflate import shuffle_bytes, zlib_chunk, zlib_stream
+from ._deflate import shuffle_bytes, zlib_chunk
 
-__all__ = ["define_and_plan", "release", "zlib_stream", "ChunkTarget"]
+__all__ = ["define_and_plan", "release", "ChunkTarget"]
 
 _H5Z_FILTER_DEFLATE = 1
 _H5Z_FILTER_SHUFFLE = 2

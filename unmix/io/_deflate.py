@@ -25,7 +25,6 @@ import numpy as np
 
 from ._adler32_numba import adler32
 from ._deflate_numba import MIN_RUN, capacity, deflate_planes, encode_words, shuffle_words
-from ._huffman_numba import huffman_lengths
 
 __all__ = ["zlib_stream", "zlib_chunk", "shuffle_bytes"]
 
@@ -37,7 +36,6 @@ _STORED_MAX = 65535
 #: Unsigned integer types whose bytes the compiled shuffle reads (little-endian machines only).
 _WORDS = {1: np.uint8, 2: np.uint16, 4: np.uint32, 8: np.uint64}
 
-_huffman_lengths = huffman_lengths  # the name earlier tests import
 _THREAD = threading.local()
 
 
