@@ -1,6 +1,6 @@
 """The two-endmember model (candidate + shade) that every pruning score rests on.
 
-Every score here rests on the same two-endmember model: a candidate spectrum ``e_i`` models another
+Every pruning score rests on this model: a candidate spectrum ``e_i`` models another
 spectrum ``x_j`` together with photometric shade ``s`` (zero reflectance unless a ``shade`` spectrum is
 given) and fractions summing to one,
 
