@@ -183,7 +183,7 @@ def unmix_cube(
         data = dsa.sum(valid.data.astype(np.int16), axis=0, dtype=np.int16, split_every=2).astype(np.int32)
         counts = xr.DataArray(data, dims=("y", "x"), coords={k: v for k, v in valid.coords.items()
                                                             if "time" not in v.dims})
-    return _finish(cube, fractions, rmse, counts.astype(np.int32), M, con, w, names, band_labels)
+    return _finish(cube, fractions, rmse, counts, M, con, w, names, band_labels)
 
 
 def _unmix_with_valid(block: np.ndarray, endmembers: np.ndarray, constraint: str, weights: Any,
