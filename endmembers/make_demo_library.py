@@ -29,6 +29,7 @@ Shapes used (all reflectance 0..1):
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import sys
 from pathlib import Path
 
@@ -41,6 +42,8 @@ from unmix.io.library import write_library  # noqa: E402
 from unmix.spectra import SpectralLibrary, resample  # noqa: E402
 
 WL = np.arange(400.0, 2500.0 + 0.5, 5.0)  # [nm]
+#: decimals kept in the resampled libraries (1e-6 reflectance, far below any sensor's noise)
+DECIMALS = 6
 
 DESCRIPTION = (
     "INVENTED spectra for a fictional land-degradation scenario: smooth analytic curves with the typical "
@@ -157,6 +160,9 @@ def main(argv=None) -> int:
         print(write_library(lib, args.out / f"{stem}.csv", overwrite=args.overwrite))
         for sensor, bands in RESAMPLE.items():
             r = resample(lib, sensor, bands)
+            # rounded to 1e-6 reflectance: the last digits of the response integrals differ between numpy
+            # builds and CPUs, and the shipped text must not depend on them
+            r = dataclasses.replace(r, spectra=np.round(r.spectra, DECIMALS))
             r = r.with_metadata(description=f"{lib.metadata['description']} Resampled to {sensor} "
                                             f"bands {', '.join(bands)} (Gaussian responses).")
             print(write_library(r, args.out / f"{stem}_{sensor}.csv", overwrite=args.overwrite))
