@@ -37,6 +37,10 @@ class ShapeError(InputError):
     """Array shapes do not fit together."""
 
 
+class SeriesTooLongError(InputError):
+    """A series is longer than a method can handle in bounded memory (pairwise slopes)."""
+
+
 class BandMismatchError(InputError):
     """Band counts or band names of two inputs disagree."""
 

@@ -8,7 +8,13 @@ import math
 import numba
 import numpy as np
 
-from unmix.errors import InputError, ShapeError
+from unmix.errors import InputError, SeriesTooLongError, ShapeError
+
+#: Longest series [time steps] for the methods that hold every pairwise slope of a series at once
+#: (Sen slope, and the Mann-Kendall corrections that detrend with it): n (n - 1) / 2 float64 slopes,
+#: twice (values and selection scratch), about 0.5 GiB per running thread at this length. Satellite
+#: records of a few thousand dates stay well below it.
+MAX_PAIRWISE_LENGTH = 8192
 
 
 def _series(y, axis, name="y"):
@@ -29,6 +35,17 @@ def _series(y, axis, name="y"):
     if np.isinf(y2).any():
         raise InputError(f"{name} contains infinite values; mark missing values with NaN instead.")
     return y2, lead
+
+
+def _check_pairwise_length(nt, method):
+    """Refuse a time axis whose pairwise slopes would not fit in bounded memory."""
+    if nt > MAX_PAIRWISE_LENGTH:
+        gib = nt * (nt - 1) / 2 * 8 * 2 / 2**30
+        raise SeriesTooLongError(
+            f"{method} needs every pairwise slope of a series: {nt} time steps would take {gib:,.0f} GiB per "
+            f"thread; the limit is {MAX_PAIRWISE_LENGTH} steps. Aggregate the series (e.g. to monthly or "
+            "annual values) first, or use the Mann-Kendall test with correction 'none' or 'prewhiten', which "
+            "needs no pairwise slopes.")
 
 
 def _out_float(y):

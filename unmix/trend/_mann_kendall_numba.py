@@ -165,8 +165,11 @@ def mann_kendall_batch(y, tg, use_tg, correction, exact_cdf, n_chunks, s_out, va
         g = np.empty(nt, dtype=np.int64)
         w = np.empty(nt)
         sbuf = np.empty(nt)
-        buf = np.empty(max(1, nt * (nt - 1) // 2))
-        tmp = np.empty(max(1, nt * (nt - 1) // 2))
+        # pairwise-slope scratch only for the corrections that detrend with the Sen slope: the
+        # original test and plain pre-whitening run on series of any length in O(n) memory
+        npair = nt * (nt - 1) // 2 if correction >= TREND_FREE_PREWHITEN else 1
+        buf = np.empty(max(1, npair))
+        tmp = np.empty(max(1, npair))
         ranks = np.empty(nt)
         for r in range(c * ns // n_chunks, (c + 1) * ns // n_chunks):
             _mann_kendall_one(r, y, tg, use_tg, correction, exact_cdf, x, g, w, sbuf, buf, tmp,

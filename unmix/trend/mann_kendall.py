@@ -16,7 +16,7 @@ import numpy as np
 from unmix.errors import UnknownNameError
 
 from . import _mann_kendall_numba as _nb
-from ._arguments import _chunks, _reshape, _series, _times
+from ._arguments import _check_pairwise_length, _chunks, _reshape, _series, _times
 from ._prewhiten_numba import iterative_prewhiten_batch
 
 __all__ = [
@@ -72,6 +72,11 @@ _CORRECTION_CODE = {
     MannKendallCorrection.HAMED_RAO: _nb.HAMED_RAO,
     MannKendallCorrection.ITERATIVE_PREWHITEN: _nb.ITERATIVE_PREWHITEN,
 }
+
+
+#: corrections that detrend with the Sen slope and so hold every pairwise slope of a series
+_NEEDS_PAIRWISE = frozenset({MannKendallCorrection.TREND_FREE_PREWHITEN, MannKendallCorrection.HAMED_RAO,
+                             MannKendallCorrection.ITERATIVE_PREWHITEN})
 
 
 @dataclass(frozen=True)
@@ -244,6 +249,8 @@ def mann_kendall(y, t=None, *, axis=-1, correction="none"):
     corr = _correction(correction)
     y2, lead = _series(y, axis)
     nt = y2.shape[1]
+    if corr in _NEEDS_PAIRWISE:
+        _check_pairwise_length(nt, f"the Mann-Kendall correction {corr.value!r}")
     order, ts = _times(t, nt)
     if order is not None:
         y2 = np.ascontiguousarray(y2[:, order])
@@ -328,6 +335,7 @@ def iterative_prewhiten(y, *, axis=-1):
     """
     y2, lead = _series(y, axis)
     ns, nt = y2.shape
+    _check_pairwise_length(nt, "iterative pre-whitening")
     series = np.empty((ns, nt))
     rho, slope = np.empty(ns), np.empty(ns)
     it = np.empty(ns, dtype=np.int64)

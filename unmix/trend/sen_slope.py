@@ -19,7 +19,7 @@ from scipy.special import ndtri
 from unmix.errors import InputError
 
 from . import _sen_slope_numba as _nb
-from ._arguments import _chunks, _out_float, _reshape, _season_codes, _series, _times
+from ._arguments import _check_pairwise_length, _chunks, _out_float, _reshape, _season_codes, _series, _times
 
 __all__ = ["SenSlopeResult", "sen_slope", "seasonal_sen_slope"]
 
@@ -99,6 +99,7 @@ def sen_slope(y, t=None, *, axis=-1, confidence=0.95):
     dt = _out_float(y)
     y2, lead = _series(y, axis)
     nt = y2.shape[1]
+    _check_pairwise_length(nt, "the Sen slope")
     order, ts = _times(t, nt)
     if order is not None:
         y2 = np.ascontiguousarray(y2[:, order])
@@ -201,6 +202,7 @@ def seasonal_sen_slope(y, season, t=None, *, axis=-1, confidence=0.95):
     dt = _out_float(y)
     y2, lead = _series(y, axis)
     nt = y2.shape[1]
+    _check_pairwise_length(nt, "the Sen slope")
     codes, n_seasons = _season_codes(season, nt)
     order, ts = _times(t, nt)
     if order is not None:
