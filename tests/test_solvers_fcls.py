@@ -323,3 +323,41 @@ def test_constraint_enum_and_strings():
     b = estimate_fractions(x, M, constraint="non-negative")[0]
     np.testing.assert_array_equal(a, b)
     assert [c.value for c in Constraint] == ["none", "sum-to-one", "non-negative", "fcls"]
+
+
+# ---------------------------------------------------------------- non-physical magnitudes stay on the simplex
+@settings(max_examples=60, deadline=None)
+@given(seed=st.integers(0, 2**32 - 1), p=st.integers(2, 6), exponent=st.integers(0, 38),
+       dtype=st.sampled_from([np.float32, np.float64]))
+def test_fcls_fractions_stay_on_the_simplex_for_any_finite_input(seed, p, exponent, dtype):
+    # an undeclared fill value (1e30, 3.4e38) or a wrong scale factor must never give fractions above 1
+    # or a sum far from 1: every FCLS fraction of a finite input lies in [0, 1] and sums to 1 (1e-6)
+    rng = np.random.default_rng(seed)
+    nb = p + 3
+    M = rng.uniform(0.02, 0.7, (p, nb))
+    x = rng.uniform(0.0, 0.6, (50, nb))
+    big = rng.random((50, nb)) < 0.3
+    x[big] = rng.choice([-1.0, 1.0], big.sum()) * rng.uniform(1, 3.4, big.sum()) * 10.0 ** exponent
+    x = x.astype(dtype)
+    assert np.isfinite(x).all()
+    f, _ = estimate_fractions(x, M, constraint="fcls")
+    assert np.isfinite(f).all()
+    assert (f >= 0).all() and (f <= 1).all()
+    np.testing.assert_allclose(f.sum(-1), 1.0, rtol=0, atol=1e-6)
+
+
+def test_fcls_of_a_huge_input_is_the_linear_programme_vertex():
+    # For |x| -> inf the FCLS objective |M^T a - x|^2 is dominated by -2 x.M^T a: its minimiser over
+    # the simplex is the solution of the linear programme max (M x).a, a >= 0, sum a = 1
+    # (reference: scipy.optimize.linprog, HiGHS).
+    from scipy.optimize import linprog
+
+    rng = np.random.default_rng(11)
+    M = rng.uniform(0.02, 0.7, (5, 8))
+    for _ in range(20):
+        x = rng.choice([-1.0, 1.0], 8) * rng.uniform(1, 3, 8) * 1e30
+        # the LP's objective scaled to order one (the same optimum; HiGHS refuses 1e30 coefficients)
+        lp = linprog(-(M @ x) / np.abs(x).max(), A_eq=np.ones((1, 5)), b_eq=[1.0], bounds=[(0, None)] * 5, method="highs")
+        assert lp.status == 0, lp.message
+        f, _ = estimate_fractions(x, M, constraint="fcls")
+        np.testing.assert_allclose(f, lp.x, atol=1e-9)

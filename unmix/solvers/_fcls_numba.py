@@ -207,6 +207,43 @@ def _active_set(G, gmax, b, eq, Ptab, qtab, use_table, a0, a, z, g, insup, idx, 
     return n_outer
 
 
+@njit(cache=True, inline="always")
+def _on_simplex(a, p):
+    """True when ``a`` is non-negative and sums to one to within rounding (1e-9)."""
+    s = 0.0
+    for j in range(p):
+        if not a[j] >= 0.0:  # also catches NaN
+            return False
+        s += a[j]
+    return abs(s - 1.0) <= 1e-9
+
+
+@njit(cache=True, inline="always")
+def _nearest_vertex(xs, M, a, p, nb):
+    """Put in ``a`` the vertex of the simplex (one endmember, fraction 1) closest to ``xs``.
+
+    Fallback for inputs whose magnitude is beyond what the closed forms resolve in float64
+    (|x| of order 1e6 and more, e.g. an undeclared fill value of 1e30): there the rounding of
+    ``L x`` is larger than the fractions themselves. For |x| -> inf the FCLS optimum tends to the
+    vertex that maximises m_k . x, which the nearest vertex is for such inputs; the result stays
+    on the simplex exactly.
+    """
+    # argmin_k |x - m_k|^2 = argmax_k (m_k . x - |m_k|^2 / 2), without |x|^2, which swamps the
+    # differences between vertices in float64 for such inputs
+    best = 0
+    best_s = -np.inf
+    for j in range(p):
+        s = 0.0
+        for k in range(nb):
+            s += M[j, k] * (xs[k] - 0.5 * M[j, k])
+        if s > best_s:
+            best_s = s
+            best = j
+    for j in range(p):
+        a[j] = 0.0
+    a[best] = 1.0
+
+
 @njit(cache=True, parallel=True, fastmath=_FASTMATH)
 def unmix_pixels(x, M, L, q, MWs, Pb, qb, via_b, G, Ptab, qtab, use_table, mode, frac, rmse, block):
     """Fractions and RMSE for every row of ``x`` (n_pixels, n_bands), written into ``frac``/``rmse``.
@@ -287,6 +324,12 @@ def unmix_pixels(x, M, L, q, MWs, Pb, qb, via_b, G, Ptab, qtab, use_table, mode,
                 for j in range(p):
                     a0[j] = a[j]
                 _active_set(G, gmax, bvec, eq, Ptab, qtab, use_table, a0, a, z, g, insup, idx, K)
+            if mode == MODE_FCLS:
+                if not _on_simplex(a, p):
+                    _nearest_vertex(xs, M, a, p, nb)
+                for j in range(p):  # a lone support member can come out 1 + 1 ulp
+                    if a[j] > 1.0:
+                        a[j] = 1.0
             # residual from x - M^T a directly (not from the expanded quadratic: no cancellation)
             for k in range(nb):
                 res[k] = xs[k]
