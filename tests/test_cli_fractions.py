@@ -307,3 +307,35 @@ def test_netcdf_cube_input_with_cog(make_netcdf_stack, make_library, tmp_path, c
         assert src.crs == rasterio.crs.CRS.from_user_input(info.crs)
         np.testing.assert_array_equal(src.read(), product["fractions"].sel(endmember=info.names[0]).values)
     product.close()
+
+
+def test_implausible_reflectance_is_masked_with_a_warning_naming_date_and_count(make_stack, make_library, tmp_path,
+                                                                                capsys):
+    # a float32 stack whose second date carries an undeclared fill value (1e30) in 3 pixels
+    from unmix.errors import ImplausibleReflectanceWarning
+
+    info = make_stack(storage="float32")
+    with rasterio.open(info.files[1], "r+") as dst:
+        band = dst.read(2)
+        band[4, 4:7] = 1e30
+        dst.write(band, 2)
+    args = [info.folder, "--library", make_library(), "--sensor", "landsat-8-oli", "--band-names", ",".join(BANDS),
+            "--out", tmp_path / "out"]
+    with pytest.warns(ImplausibleReflectanceWarning, match=rf"{str(info.dates[1])}: 3 pixels"):
+        code, out, err = run(args, capsys)
+    assert code == 0, err
+    product = open_product(tmp_path / "out" / "fractions.nc")
+    assert np.isnan(product["fractions"].values[1, :, 4, 4:7]).all()
+    assert product["implausible_count"].values.tolist() == [0, 3] + [0] * (len(info.dates) - 2)
+    # the same run with the screening off keeps those pixels, on the simplex
+    code, out, err = run(args[:-1] + [tmp_path / "off", "--valid-range", "none"], capsys)
+    assert code == 0, err
+    f = open_product(tmp_path / "off" / "fractions.nc")["fractions"].values[1, :, 4, 4:7]
+    assert np.isfinite(f).all() and (f >= 0).all() and (f <= 1).all()
+
+
+@pytest.mark.parametrize("bad", ["2", "a,b", "2,-0.5", "1,2,3"])
+def test_bad_valid_range_is_one_line(make_stack, make_library, tmp_path, capsys, bad):
+    info = make_stack()
+    code, out, err = run(base_args(info, make_library(), tmp_path / "out") + ["--valid-range", bad], capsys)
+    assert_clean_failure(code, err, tmp_path / "out", "--valid-range" if bad != "2,-0.5" else "low < high")

@@ -8,6 +8,7 @@ arrays, and a dask.distributed LocalCluster run against the threaded scheduler.
 from __future__ import annotations
 
 import dask
+import dask.array
 import numpy as np
 import pytest
 import xarray as xr
@@ -167,3 +168,45 @@ def test_finite_mean_equals_numpy_nanmean(chunks):
     assert float(finite_mean(da)) == pytest.approx(np.nanmean(finite), rel=1e-12)
     empty = xr.DataArray(np.full((2, 3), np.nan, np.float32))
     assert np.isnan(float(finite_mean(empty.chunk({"dim_0": 1}) if chunks else empty)))
+
+
+# ---------------------------------------------------------------- implausible reflectance is no data, counted
+def _with_fill(info, cube, where):
+    """The stack's float cube with undeclared fill values written at ``where`` [(t, b, y, x), value]."""
+    data = info.reflectance.copy()
+    for (t, b, y, x), value in where:
+        data[t, b, y, x] = value
+    return cube.copy(data=dask.array.from_array(data, chunks=cube.data.chunksize))
+
+
+def test_implausible_reflectance_is_masked_and_counted_per_date(stack):
+    info, cube = stack
+    # an undeclared float fill (1e30, float32 max) and a value read without its scale (-9999)
+    fills = [((1, 0, 3, 4), 1e30), ((1, 2, 8, 8), 3.4e38), ((2, 5, 0, 1), -9999.0), ((2, 5, 0, 2), 2.5)]
+    bad_cube = _with_fill(info, cube, fills)
+    ds = unmix_cube(bad_cube, info.endmembers, names=info.names)
+    assert dask.is_dask_collection(ds["implausible_count"])
+    f = ds["fractions"].values
+    # count per date, computed here with numpy on the same array: any finite band outside -0.5..2
+    data = bad_cube.values
+    outside = ((data < -0.5) | (data > 2.0)).any(axis=1)  # (t, y, x); NaN compares False
+    np.testing.assert_array_equal(ds["implausible_count"].values, outside.sum(axis=(1, 2)))
+    assert ds["implausible_count"].values.tolist()[:3] == [0, 2, 2]
+    assert np.isnan(f[np.broadcast_to(outside[:, None], f.shape)]).all()
+    # every other pixel is exactly what the kernel gives on the untouched reflectance
+    ref_f, _ = estimate_fractions(np.moveaxis(info.reflectance, 1, -1), info.endmembers)
+    keep = np.broadcast_to(~outside[:, None], f.shape)
+    np.testing.assert_array_equal(f[keep], np.moveaxis(ref_f, -1, 1)[keep])
+    np.testing.assert_array_equal(ds["valid_count"].values, ((~info.nodata_mask) & ~outside).sum(axis=0))
+
+
+def test_valid_range_none_screens_nothing_and_fcls_stays_on_the_simplex(stack):
+    info, cube = stack
+    bad_cube = _with_fill(info, cube, [((1, 0, 3, 4), 1e30)])
+    ds = unmix_cube(bad_cube, info.endmembers, names=info.names, valid_range=None).compute()
+    assert int(ds["implausible_count"].sum()) == 0
+    f = ds["fractions"].values[1, :, 3, 4]
+    assert np.isfinite(f).all() and (f >= 0).all() and (f <= 1).all()
+    assert abs(float(f.sum()) - 1.0) <= 1e-6  # the FCLS kernel's guarantee for any finite input
+    with pytest.raises(Exception, match="low < high"):
+        unmix_cube(cube, info.endmembers, names=info.names, valid_range=(2.0, -0.5))

@@ -50,6 +50,25 @@ def test_mesma_cube_lazy_equals_eager(hand_bundles):
     assert np.isnan(computed.rmse.values[1, 2, 2]) and not computed.unmodelled.values[1, 2, 2]
 
 
+def test_mesma_cube_masks_and_counts_implausible_reflectance(hand_bundles):
+    from unmix.cube.mesma import mesma_cube
+
+    rng = np.random.default_rng(12)
+    x, _, _ = make_scene(rng, hand_bundles, np.zeros(6), 2 * 3 * 4)
+    arr = x.reshape(2, 3, 4, 6).transpose(0, 3, 1, 2).astype(np.float32)  # (time, band, y, x)
+    arr[1, 3, 0, 0] = 1e30  # undeclared fill value
+    arr[1, 0, 2, 3] = -3.0  # far below any surface reflectance
+    cube = xr.DataArray(arr, dims=("time", "band", "y", "x"),
+                        coords={"time": np.array(["2020-01-01", "2021-01-01"], "datetime64[ns]"),
+                                "band": list("BGRNST")}).chunk({"time": 1, "y": 2})
+    ds = mesma_cube(cube, hand_bundles, shade=np.zeros(6)).compute()
+    # counts against a numpy count of the same rule (any band outside -0.5..2)
+    outside = ((arr < -0.5) | (arr > 2.0)).any(axis=1)
+    np.testing.assert_array_equal(ds["implausible_count"].values, outside.sum(axis=(1, 2)))
+    assert np.isnan(ds["fractions"].values[1, :, 0, 0]).all() and np.isnan(ds["fractions"].values[1, :, 2, 3]).all()
+    assert not ds["unmodelled"].values[1, 0, 0]  # no data, not "no model fits"
+
+
 def test_mesma_cube_errors(hand_bundles):
     from unmix.cube.mesma import mesma_cube
 

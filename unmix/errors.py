@@ -82,3 +82,7 @@ class UnmixWarning(UserWarning):
 
 class CollinearityWarning(UnmixWarning):
     """Two endmembers are so alike that their fractions are poorly determined."""
+
+
+class ImplausibleReflectanceWarning(UnmixWarning):
+    """Reflectance outside the plausible range was masked as no data (names the dates and counts)."""

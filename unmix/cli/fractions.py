@@ -35,6 +35,41 @@ def _int_list(text: str | None, what: str) -> tuple[int, ...]:
         raise InputError(f"{what} must be comma-separated whole numbers (bit positions), got {text!r}") from None
 
 
+def _valid_range(text: str) -> tuple[float, float] | None:
+    """``--valid-range``: 'LOW,HIGH' in reflectance, or 'none'."""
+    from ..cube.plausible import check_valid_range
+
+    if text.strip().lower() == "none":
+        return None
+    parts = [t.strip() for t in text.split(",")]
+    try:
+        values = [float(t) for t in parts]
+    except ValueError:
+        raise InputError(f"--valid-range must be LOW,HIGH in reflectance (e.g. -0.5,2) or none, got {text!r}") from None
+    if len(values) != 2:
+        raise InputError(f"--valid-range must be two numbers LOW,HIGH (e.g. -0.5,2), got {text!r}")
+    return check_valid_range(values)
+
+
+def warn_implausible(dates: Any, counts: Any, valid_range: tuple[float, float] | None) -> None:
+    """One warning naming every date with pixels masked for implausible reflectance, and the counts."""
+    import warnings
+
+    from ..errors import ImplausibleReflectanceWarning
+
+    if counts is None or valid_range is None:
+        return
+    counts = np.asarray(counts)
+    hit = np.flatnonzero(counts > 0)
+    if not hit.size:
+        return
+    listed = ", ".join(f"{str(dates[i])[:10]}: {int(counts[i]):,} pixels" for i in hit)
+    warnings.warn(ImplausibleReflectanceWarning(
+        f"reflectance outside {valid_range[0]:g}..{valid_range[1]:g} masked as no data on {hit.size} "
+        f"date(s) ({listed}); check the fill value and scale of those files (--valid-range sets the range)"),
+        stacklevel=2)
+
+
 def mesma_bundles(library: Any, M: np.ndarray) -> tuple[dict[str, np.ndarray], np.ndarray | None, dict[str, list[str]]]:
     """Bundles for MESMA from a library's class labels (a spectrum without a label is its own class).
 
@@ -104,6 +139,9 @@ def _command_line(ctx: click.Context) -> str:
 @click.option("--qa-bits", "qa_bits", default=None, metavar="1,3,...",
               help="QA bit positions (0 = least significant) that mark a pixel invalid. Default with --qa: "
                    "any non-zero QA value.")
+@click.option("--valid-range", "valid_range", default="-0.5,2", show_default=True, metavar="LOW,HIGH",
+              help="Plausible reflectance after scaling: a pixel with any band outside it is no data on that date "
+                   "and counted (an undeclared fill value such as 1e30, or a wrong scale). 'none' turns it off.")
 @click.option("--mesma", is_flag=True, default=False,
               help="Multiple endmember unmixing: the library's class labels make bundles (a class named 'shade' "
                    "is the photometric shade); each pixel and date picks at most one member per class, the "
@@ -123,7 +161,7 @@ def _command_line(ctx: click.Context) -> str:
 def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str, band_names: str | None,
               endmember_names: str | None, constraint: str, out: Path, overwrite: bool, align: bool,
               resampling: str, dates: Path | None, scale: float | None, offset: float | None, qa: str | None,
-              qa_bits: str | None, mesma: bool, max_rmse: float, cog: bool, compress_level: int, workers: int | None,
+              qa_bits: str | None, valid_range: str, mesma: bool, max_rmse: float, cog: bool, compress_level: int, workers: int | None,
               scheduler: str | None, chunk_size: int | None) -> None:
     """Fractions of every endmember in every pixel and date of STACK.
 
@@ -147,6 +185,7 @@ def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str, band_
     bands = split_names(band_names, "--band-names")
     wanted = split_names(endmember_names, "--endmembers")
     bits = _int_list(qa_bits, "--qa-bits")
+    vrange = _valid_range(valid_range)
     if qa_bits and qa is None:
         raise InputError("--qa-bits needs --qa (the QA band or the folder of mask files)")
 
@@ -175,19 +214,19 @@ def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str, band_
         from ..cube.mesma import mesma_cube
 
         bundles, shade, members = mesma_bundles(lib, M)
-        ds = mesma_cube(cube, bundles, shade=shade, constraint=constraint, max_rmse=max_rmse)
+        ds = mesma_cube(cube, bundles, shade=shade, constraint=constraint, max_rmse=max_rmse, valid_range=vrange)
         ds["members"].attrs["member_names"] = json.dumps(members)
         valid = np.isfinite(ds["fractions"].isel(endmember=0)).sum("time").astype(np.int32)
         ds["valid_count"] = valid.assign_attrs(long_name="dates with a valid fraction", units="1")
     else:
-        ds = unmix_cube(cube, M, names=names, constraint=constraint)
+        ds = unmix_cube(cube, M, names=names, constraint=constraint, valid_range=vrange)
 
     command = _command_line(ctx)
     parameters = {
         "sensor": sensor_obj.id, "bands": stack_bands, "endmembers": names, "constraint": constraint,
         "library": str(library), "scale": scale, "offset": offset, "qa": qa, "qa_bits": list(bits),
         "align": align, "resampling": resampling if align else None, "dates": str(dates) if dates else None,
-        "chunk_size": chunk_size, "mesma": mesma, "max_rmse": max_rmse if mesma else None,
+        "chunk_size": chunk_size, "valid_range": list(vrange) if vrange else None, "mesma": mesma, "max_rmse": max_rmse if mesma else None,
         "library_spectra": list(lib.names),
     }
     input_files = list(cube.attrs.get("input_files", ())) + [str(library)]
@@ -199,8 +238,10 @@ def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str, band_
 
         def compute(delayed: Any) -> None:
             # the summary rides along with the write: one pass over each chunk, no second read
-            _, mean_rmse, valid = run.compute(delayed, finite_mean(ds["rmse"]), ds["valid_count"].data.sum())
-            stats.update(mean_rmse=float(mean_rmse), valid=int(valid))
+            _, mean_rmse, valid, implausible = run.compute(delayed, finite_mean(ds["rmse"]),
+                                                           ds["valid_count"].data.sum(),
+                                                           ds["implausible_count"].data)
+            stats.update(mean_rmse=float(mean_rmse), valid=int(valid), implausible=np.asarray(implausible))
 
         write_netcdf(ds, nc_path, overwrite=overwrite, command=command, parameters=parameters,
                      input_files=input_files, title="unmix endmember fractions", complevel=compress_level,
@@ -217,6 +258,7 @@ def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str, band_
             write_cog(da_, path, overwrite=overwrite, tags={**tags, "endmember": name})
         product.close()
 
+    warn_implausible(cube["time"].values, stats.get("implausible"), vrange)
     n_t, n_y, n_x = cube.sizes["time"], cube.sizes["y"], cube.sizes["x"]
     pixels = n_y * n_x
     mean_rmse = stats.get("mean_rmse", float("nan"))

@@ -22,6 +22,7 @@ import xarray as xr
 
 from ..errors import BandMismatchError, InputError, ShapeError
 from ..solvers import Constraint, check_endmembers, estimate_fractions
+from .plausible import DEFAULT_VALID_RANGE, check_valid_range, implausible_counts, screen_block
 
 __all__ = ["unmix_cube"]
 
@@ -72,6 +73,7 @@ def unmix_cube(
     names: Sequence[str],
     constraint: Constraint | str = "fcls",
     weights: Any = None,
+    valid_range: tuple[float, float] | None = DEFAULT_VALID_RANGE,
 ) -> xr.Dataset:
     """Fractions of every endmember in every pixel and date of a reflectance cube (lazy).
 
@@ -93,12 +95,17 @@ def unmix_cube(
         ``"none"``, ``"sum-to-one"``, ``"non-negative"`` or ``"fcls"``.
     weights : (band,) array_like, optional
         Per-band weights of the least squares [1/reflectance**2].
+    valid_range : (low, high) or None, default (-0.5, 2.0)
+        Plausible reflectance [reflectance]: a pixel with a band outside it is no data on that
+        date (all its fractions NaN) and is counted in ``implausible_count`` (see
+        :mod:`unmix.cube.plausible`). None screens nothing.
 
     Returns
     -------
     xarray.Dataset
         ``fractions`` (time, endmember, y, x) float32 [1]; ``rmse`` (time, y, x) float32
         [reflectance]; ``valid_count`` (y, x) int32, dates with valid fractions;
+        ``implausible_count`` (time,) int32, pixels masked for implausible reflectance;
         ``endmember_spectra`` (endmember, band) float32 [reflectance]. Coordinates and the
         georeferencing (``spatial_ref``, ``crs_wkt``, ``transform``) of ``cube`` are kept;
         attributes record method, constraint and endmember names. All lazy if ``cube`` is.
@@ -150,6 +157,7 @@ def unmix_cube(
     if len(names) != M.shape[0]:
         raise ShapeError(f"{len(names)} endmember names given for {M.shape[0]} endmember spectra")
     w = None if weights is None else np.asarray(weights, dtype=np.float64)
+    vrange = check_valid_range(valid_range)
 
     if cube.dtype != np.float32:
         cube = cube.astype(np.float32)
@@ -159,20 +167,21 @@ def unmix_cube(
     # One task per chunk: the kernel, and the valid-pixel mask made from its result while it is in
     # cache. apply_ufunc moves the core dim (band) last as a view; chunks read from GeoTIFFs are
     # views of band-last buffers, so the kernel receives them without a copy.
-    fractions, rmse, valid = xr.apply_ufunc(
+    fractions, rmse, valid, flags = xr.apply_ufunc(
         _unmix_with_valid,
         cube,
-        kwargs={"endmembers": M, "constraint": con.value, "weights": w, "names": names},
+        kwargs={"endmembers": M, "constraint": con.value, "weights": w, "names": names, "valid_range": vrange},
         input_core_dims=[["band"]],
-        output_core_dims=[["endmember"], [], []],
+        output_core_dims=[["endmember"], [], [], []],
         dask="parallelized",
-        output_dtypes=[np.float32, np.float32, np.bool_],
+        output_dtypes=[np.float32, np.float32, np.bool_, np.bool_],
         dask_gufunc_kwargs={"output_sizes": {"endmember": len(names)}},
         keep_attrs=False,
     )
     fractions = fractions.transpose("time", "endmember", "y", "x").assign_coords(endmember=list(names))
     rmse = rmse.transpose("time", "y", "x")
     valid = valid.transpose("time", "y", "x")
+    implausible = implausible_counts(flags.transpose("time", "y", "x"), vrange)
     if valid.chunks is None:
         counts = valid.sum("time", dtype=np.int32)
     else:
@@ -183,14 +192,18 @@ def unmix_cube(
         data = dsa.sum(valid.data.astype(np.int16), axis=0, dtype=np.int16, split_every=2).astype(np.int32)
         counts = xr.DataArray(data, dims=("y", "x"), coords={k: v for k, v in valid.coords.items()
                                                             if "time" not in v.dims})
-    return _finish(cube, fractions, rmse, counts, M, con, w, names, band_labels)
+    ds = _finish(cube, fractions, rmse, counts, M, con, w, names, band_labels)
+    ds["implausible_count"] = implausible
+    return ds
 
 
 def _unmix_with_valid(block: np.ndarray, endmembers: np.ndarray, constraint: str, weights: Any,
-                      names: tuple) -> tuple:
-    """(..., band) reflectance -> fractions (..., endmember), RMSE (...) and valid (...) of one chunk."""
+                      names: tuple, valid_range: tuple[float, float] | None) -> tuple:
+    """(..., band) reflectance -> fractions (..., endmember), RMSE (...), valid (...) and implausible (...)
+    of one chunk."""
+    block, flags = screen_block(np.asarray(block), valid_range)
     fractions, rmse = _unmix_block(block, endmembers, constraint, weights, names)
-    return fractions, rmse, _all_finite(fractions)
+    return fractions, rmse, _all_finite(fractions), flags
 
 
 @numba.njit(cache=True, nogil=True)

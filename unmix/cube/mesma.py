@@ -16,6 +16,7 @@ import xarray as xr
 from .. import __version__
 from ..mesma import MesmaConstraint, _check_limits, _constraint, _prepare_models, _run_mesma
 from .fractions import reflectance_cube
+from .plausible import DEFAULT_VALID_RANGE, check_valid_range, implausible_counts, screen_block
 
 __all__ = ["mesma_cube"]
 
@@ -26,10 +27,11 @@ _REFERENCES = (
 )
 
 
-def _mesma_block(block, *, models, constraint, limits):
-    """Kernel call on one chunk: (..., band) -> (..., endmember), (..., class), (...), (...)."""
-    frac, mem, rmse, unmod = _run_mesma(np.asarray(block), models, constraint, *limits)
-    return frac, mem, rmse, unmod
+def _mesma_block(block, *, models, constraint, limits, valid_range):
+    """Kernel call on one chunk: (..., band) -> (..., endmember), (..., class), (...), (...), (...)."""
+    block, flags = screen_block(np.asarray(block), valid_range)
+    frac, mem, rmse, unmod = _run_mesma(block, models, constraint, *limits)
+    return frac, mem, rmse, unmod, flags
 
 
 def mesma_cube(
@@ -44,6 +46,7 @@ def mesma_cube(
     max_classes: int | None = None,
     min_rmse_gain: float = 0.001,
     weights=None,
+    valid_range: tuple[float, float] | None = DEFAULT_VALID_RANGE,
 ) -> xr.Dataset:
     """Per-pixel MESMA model selection on every date of a reflectance cube (lazy).
 
@@ -56,6 +59,8 @@ def mesma_cube(
         Endmember spectra of each class in the cube's band order [reflectance].
     shade, max_rmse, fraction_bounds, max_shade, constraint, max_classes, min_rmse_gain, weights
         As in :func:`unmix.mesma.mesma` (the selection rule is documented in :mod:`unmix.mesma`).
+    valid_range : (low, high) or None, default (-0.5, 2.0)
+        Plausible reflectance, as in :func:`unmix.cube.unmix_cube`.
 
     Returns
     -------
@@ -63,7 +68,8 @@ def mesma_cube(
         ``fractions`` (time, endmember, y, x) [1] -- classes then ``shade``, 0 for classes absent
         from the chosen model; ``members`` (time, class, y, x) int16, member index within each
         class bundle, -1 when absent or no model fits; ``rmse`` (time, y, x) [reflectance];
-        ``unmodelled`` (time, y, x) bool, valid pixels no model fits. Coordinates, georeferencing
+        ``unmodelled`` (time, y, x) bool, valid pixels no model fits; ``implausible_count`` (time,)
+        int32, pixels masked for implausible reflectance. Coordinates, georeferencing
         attributes and laziness of ``cube`` are kept; attributes record the method, parameters,
         class names, tool version and references.
 
@@ -95,6 +101,7 @@ def mesma_cube(
     """
     cube = reflectance_cube(cube, "mesma_cube")
     limits = _check_limits(max_rmse, fraction_bounds, max_shade, min_rmse_gain)
+    vrange = check_valid_range(valid_range)
     cons = _constraint(constraint)
     # built and checked once here: errors and warnings surface before any chunk is computed
     models = _prepare_models(bundles, shade, cube.sizes["band"], max_classes=max_classes, weights=weights)
@@ -106,14 +113,14 @@ def mesma_cube(
         cube = cube.chunk({"band": -1})
     dt = cube.dtype
 
-    fractions, members, rmse, unmodelled = xr.apply_ufunc(
+    fractions, members, rmse, unmodelled, flags = xr.apply_ufunc(
         _mesma_block,
         cube,
-        kwargs={"models": models, "constraint": cons, "limits": limits},
+        kwargs={"models": models, "constraint": cons, "limits": limits, "valid_range": vrange},
         input_core_dims=[["band"]],
-        output_core_dims=[["endmember"], ["class"], [], []],
+        output_core_dims=[["endmember"], ["class"], [], [], []],
         dask="parallelized",
-        output_dtypes=[dt, np.int16, dt, np.bool_],
+        output_dtypes=[dt, np.int16, dt, np.bool_, np.bool_],
         dask_gufunc_kwargs={"output_sizes": {"endmember": len(models.names), "class": len(classes)}},
         keep_attrs=False,
     )
@@ -128,7 +135,8 @@ def mesma_cube(
     for da_ in (fractions, members, rmse, unmodelled):
         da_.attrs.update(georef)
 
-    ds = xr.Dataset({"fractions": fractions, "members": members, "rmse": rmse, "unmodelled": unmodelled})
+    ds = xr.Dataset({"fractions": fractions, "members": members, "rmse": rmse, "unmodelled": unmodelled,
+                     "implausible_count": implausible_counts(flags.transpose("time", "y", "x"), vrange)})
     ds.attrs = {
         "unmix_version": __version__,
         "method": "multiple endmember spectral mixture analysis (per-pixel model selection)",
