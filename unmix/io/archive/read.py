@@ -1,0 +1,161 @@
+"""Reading one window of one date of an archive: every scene of the date, warped onto the target grid.
+
+A :class:`DateReader` holds scenes, the grid and settings (paths and numbers, no open handles), so
+the dask graph pickles for process-based workers. For each window it reads, per scene,
+
+* each band file: directly when the file lies on the target grid (same CRS and pixel size, whole-
+  pixel offset), else through GDAL's warper (:class:`rasterio.vrt.WarpedVRT`), averaging by area when
+  the source pixels are finer than the target's (10 or 20 m onto 30 m) and nearest otherwise;
+  the stored fill value is left out of the averages;
+* the quality band, decoded to "masked" at its own resolution, then resampled as the share of each
+  target pixel covered by masked source pixels (area average); a target pixel is masked when that
+  share exceeds ``mask_share`` (default 0: any masked source pixel);
+
+and mosaics the scenes of the date: the first scene that has a valid value for a pixel gives it.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from ...errors import StackReadError
+from .grid import TargetGrid
+from .quality import masked
+from .scenes import Scene
+
+__all__ = ["DateReader"]
+
+
+@dataclass(frozen=True)
+class DateReader:
+    """Reads windows of one date: ``scenes`` (one per footprint), their band names in stack order."""
+
+    date: str
+    scenes: tuple  # of Scene
+    bands: tuple  # per scene: the sensor band names in the stack's (role) order
+    grid: TargetGrid
+    masks: tuple  # per scene: the quality names masked
+    mask_share: float = 0.0
+
+    def __call__(self, window: tuple[int, int, int, int]) -> np.ndarray:
+        row0, row1, col0, col1 = window
+        h, w = row1 - row0, col1 - col0
+        out = np.full((len(self.bands[0]), h, w), np.nan, dtype=np.float32)
+        todo = np.ones((h, w), dtype=bool)  # pixels no scene has given yet
+        for scene, bands, names in zip(self.scenes, self.bands, self.masks):
+            if not todo.any():
+                break
+            try:
+                values, ok = self._scene_window(scene, bands, names, window)
+            except StackReadError:
+                raise
+            except Exception as exc:  # rasterio/GDAL raise several types for damaged files
+                cause = exc.__cause__ or exc.__context__
+                detail = f"{exc}" + (f" ({cause})" if cause is not None and str(cause) not in str(exc) else "")
+                raise StackReadError(f"reading {scene.product_id} (date {self.date}), rows {row0}-{row1}, columns "
+                                     f"{col0}-{col1} failed: {detail}; the product may be damaged") from None
+            take = todo & ok
+            out[:, take] = values[:, take]
+            todo &= ~ok
+        return out[np.newaxis]
+
+    def _scene_window(self, scene: Scene, bands: tuple, names: tuple, window: tuple) -> tuple[np.ndarray, np.ndarray]:
+        """Reflectance (band, y, x) of one scene on the window, and where it is valid (y, x)."""
+        import rasterio
+
+        row0, row1, col0, col1 = window
+        h, w = row1 - row0, col1 - col0
+        values = np.empty((len(bands), h, w), dtype=np.float32)
+        ok = np.ones((h, w), dtype=bool)
+        for k, band in enumerate(bands):
+            with rasterio.open(scene.bands[band]) as src:
+                raw, valid = _read_on_grid(src, self.grid, window, scene.nodata)
+            values[k] = raw * np.float32(scene.scale[band]) + np.float32(scene.offset[band])
+            ok &= valid
+        if scene.quality is not None:
+            with rasterio.open(scene.quality) as src:
+                ok &= ~_masked_on_grid(src, self.grid, window, scene.quality_kind, names, self.mask_share)
+        values[:, ~ok] = np.nan
+        return values, ok
+
+
+def _on_grid(src, grid: TargetGrid) -> tuple[int, int] | None:
+    """(row, col) offset of the grid's origin in ``src`` pixels when ``src`` lies on the grid, else None."""
+    from rasterio.crs import CRS
+
+    if src.crs is None or src.crs != CRS.from_wkt(grid.crs_wkt):
+        return None
+    a, b, c, d, e, f = tuple(src.transform)[:6]
+    ga, gb, gc, gd, ge, gf = grid.transform
+    if b or d or gb or gd or not math.isclose(a, ga, rel_tol=1e-9) or not math.isclose(e, ge, rel_tol=1e-9):
+        return None
+    col, row = (gc - c) / a, (gf - f) / e
+    if abs(col - round(col)) > 1e-6 or abs(row - round(row)) > 1e-6:
+        return None
+    return round(row), round(col)
+
+
+def _read_on_grid(src, grid: TargetGrid, window: tuple, nodata: float) -> tuple[np.ndarray, np.ndarray]:
+    """Stored values of band 1 of ``src`` on the grid window as float32, and where they are not fill."""
+    from affine import Affine
+    from rasterio.crs import CRS
+    from rasterio.enums import Resampling
+    from rasterio.vrt import WarpedVRT
+    from rasterio.windows import Window
+
+    row0, row1, col0, col1 = window
+    h, w = row1 - row0, col1 - col0
+    offset = _on_grid(src, grid)
+    if offset is not None:
+        r, c = offset
+        raw = src.read(1, window=Window(col0 + c, row0 + r, w, h), boundless=True, fill_value=nodata,
+                       out_dtype="float32")
+        return raw, raw != np.float32(nodata)
+    finer = max(abs(src.transform.a), abs(src.transform.e)) < 0.99 * min(grid.resolution)
+    with WarpedVRT(src, crs=CRS.from_wkt(grid.crs_wkt), transform=Affine(*grid.transform), width=grid.width,
+                   height=grid.height, resampling=Resampling.average if finer else Resampling.nearest,
+                   src_nodata=nodata, nodata=nodata) as vrt:
+        raw = vrt.read(1, window=Window(col0, row0, w, h), out_dtype="float32")
+        valid = vrt.read_masks(1, window=Window(col0, row0, w, h)) > 0
+    return raw, valid & (raw != np.float32(nodata))
+
+
+def _masked_on_grid(src, grid: TargetGrid, window: tuple, kind: str, names: tuple, share: float) -> np.ndarray:
+    """True where more than ``share`` of a target pixel is covered by masked quality pixels (or no quality)."""
+    from affine import Affine
+    from rasterio.crs import CRS
+    from rasterio.enums import Resampling
+    from rasterio.warp import reproject, transform_bounds
+    from rasterio.windows import Window, from_bounds
+
+    row0, row1, col0, col1 = window
+    h, w = row1 - row0, col1 - col0
+    offset = _on_grid(src, grid)
+    if offset is not None:
+        r, c = offset
+        qa = src.read(1, window=Window(col0 + c, row0 + r, w, h), boundless=True, fill_value=0, masked=True)
+        return masked(kind, qa.filled(0), names) | np.ma.getmaskarray(qa) | _outside(src, r + row0, c + col0, h, w)
+    dst_t = Affine(*grid.window_transform(row0, col0))
+    left, top = dst_t * (0, 0)
+    right, bottom = dst_t * (w, h)
+    bounds = transform_bounds(CRS.from_wkt(grid.crs_wkt), src.crs, min(left, right), min(top, bottom),
+                              max(left, right), max(top, bottom), densify_pts=21)
+    win = from_bounds(*bounds, transform=src.transform).round_offsets("floor").round_lengths("ceil")
+    win = Window(win.col_off - 1, win.row_off - 1, win.width + 2, win.height + 2)  # a pixel of margin
+    qa = src.read(1, window=win, boundless=True, fill_value=0, masked=True)
+    bad = (masked(kind, qa.filled(0), names) | np.ma.getmaskarray(qa)).astype(np.float32)
+    # pixels outside the file count as masked (a scene covers only part of the grid)
+    bad[_outside(src, int(win.row_off), int(win.col_off), bad.shape[0], bad.shape[1])] = 1.0
+    cover = np.zeros((h, w), dtype=np.float32)
+    reproject(bad, cover, src_transform=src.window_transform(win), src_crs=src.crs, dst_transform=dst_t,
+              dst_crs=CRS.from_wkt(grid.crs_wkt), resampling=Resampling.average)
+    return cover > share if share > 0 else cover > 1e-6
+
+
+def _outside(src, row0: int, col0: int, h: int, w: int) -> np.ndarray:
+    rows = np.arange(row0, row0 + h)[:, None]
+    cols = np.arange(col0, col0 + w)[None, :]
+    return (rows < 0) | (rows >= src.height) | (cols < 0) | (cols >= src.width)
