@@ -205,6 +205,20 @@ def test_tabulated_sensor_centroid_fwhm_and_interpolation():
                                                    700.0, 710.0)
 
 
+def test_band_of_a_shared_table_ends_at_its_own_last_sample():
+    # A table shared by two bands: A sampled every 1 nm up to 503 nm (still 0.2 there), the next row is
+    # B's grid 100 nm away. A's response ends at 503 nm instead of ramping down to 0 across the gap;
+    # a zero one step away closes a curve as usual (definition in tabulated_sensor).
+    wl = [500.0, 501.0, 502.0, 503.0, 603.0, 604.0, 605.0]
+    s = tabulated_sensor("two", wl, [[0.0, 1.0, 0.6, 0.2, 0, 0, 0], [0, 0, 0, 0, 0.0, 1.0, 0.0]], ["A", "B"])
+    assert s.band("A").response_wavelengths_nm == (500.0, 501.0, 502.0, 503.0)
+    assert s.band("A").response(550.0) == 0.0 and s.band("A").response(502.5) == pytest.approx(0.4)
+    assert s.band("B").response_wavelengths_nm == (603.0, 604.0, 605.0)
+    # the shipped TM table jumps from 945 nm (B4 still 0.0017) to 1514 nm (B5's grid): B4 is 0 at 1200 nm
+    tm = get_sensor("landsat-5-tm")
+    assert tm.band("B4").support()[1] == 945.0 and tm.response("B4", 1200.0) == 0.0
+
+
 def test_half_maximum_points_takes_the_outermost_crossings():
     # two lobes: the width spans both (definition: outermost crossings), the dip is ignored
     wl = [500.0, 510.0, 520.0, 530.0, 540.0, 550.0, 560.0]

@@ -15,8 +15,10 @@ Every built-in band is **tabulated**: its response is the agency's measured rela
 response (USGS for TM and ETM+, NASA/Ball Aerospace for OLI and OLI-2, ESA for MSI), shipped with the
 package in ``unmix/data/`` (one CSV per sensor, the layout of a response file; ``sensor_responses.json``
 there names each table's document, and each sensor's ``source`` quotes it). Between the table's samples
-the response is linear; outside it, zero. The only change to the agencies' numbers: negative noise
-values (at most -0.009) are set to 0.
+the response is linear; outside the band's own stretch of the table, zero (see
+:func:`unmix.sensors.tabulated_sensor`: where the shared table jumps from a band's last sample across
+another band's range, the band ends at its last sample instead of ramping down across the gap). The
+only change to the agencies' numbers: negative noise values (at most -0.009) are set to 0.
 
 Each band's numbers shown by ``unmix sensors`` are derived from its table:
 
@@ -26,8 +28,8 @@ Each band's numbers shown by ``unmix sensors`` are derived from its table:
   linear across the band is sampled exactly by the band (so it is the natural abscissa of a resampled
   library), it does not depend on the 0.5 threshold, and it is the central wavelength ESA publishes for
   MSI (ESA's values are reproduced within 0.1 nm). It differs from the mid-point of the half-maximum
-  points (NASA's definition of an OLI centre) by less than 0.8 nm for OLI and OLI-2, and by up to
-  6.3 nm for the skewed TM and ETM+ responses (TM B7) and 2.7 nm for MSI (B8, B12).
+  points (NASA's definition of an OLI centre) by at most 0.6 nm for OLI and 0.9 nm for OLI-2, and by up
+  to 5.7 nm for the skewed TM and ETM+ responses (TM B7) and 2.7 nm for MSI (B12).
 
 The tables are read lazily, once, from the package's own data (:mod:`importlib.resources`: a checkout,
 an editable install and a wheel alike); no user path is involved.
