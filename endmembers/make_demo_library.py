@@ -39,6 +39,7 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))  # use the unmix of this checkout
 
 from unmix.io.library import write_library  # noqa: E402
+from unmix.sensors import get_sensor  # noqa: E402
 from unmix.spectra import SpectralLibrary, resample  # noqa: E402
 
 WL = np.arange(400.0, 2500.0 + 0.5, 5.0)  # [nm]
@@ -164,7 +165,8 @@ def main(argv=None) -> int:
             # builds and CPUs, and the shipped text must not depend on them
             r = dataclasses.replace(r, spectra=np.round(r.spectra, DECIMALS))
             r = r.with_metadata(description=f"{lib.metadata['description']} Resampled to {sensor} "
-                                            f"bands {', '.join(bands)} (Gaussian responses).")
+                                            f"bands {', '.join(bands)} with the measured spectral responses "
+                                            f"shipped in unmix/data ({get_sensor(sensor).source.split(';')[0]}).")
             print(write_library(r, args.out / f"{stem}_{sensor}.csv", overwrite=args.overwrite))
     return 0
 

@@ -30,11 +30,15 @@ def test_sensors_lists_every_builtin(capsys):
 def test_sensors_id_lists_bands_and_source(capsys):
     code, out, _ = run(capsys, "sensors", "sentinel-2a-msi")
     assert code == 0
-    # ESA COPE-GSEG-EOPG-TN-15-0007 via CHECKS.md: B8A centre 864.7 nm, bandwidth 21 nm; B12 2202.4 / 175
-    line = next(l for l in out.splitlines() if l.startswith("B8A "))
-    assert line.split()[1:3] == ["864.7", "21.0"]
-    line = next(l for l in out.splitlines() if l.startswith("B12 "))
-    assert line.split()[1:3] == ["2202.4", "175.0"]
+    # ESA COPE-GSEG-EOPG-TN-15-0007 via CHECKS.md: B8A centre 864.7 nm, bandwidth 21 nm; B12 2202.4 / 175.
+    # Centres: ESA's central wavelength is the response-weighted mean, as ours (0.1 nm); ESA's whole-nm
+    # bandwidths are 0.5-1.5 nm wider than the interpolated 50 % widths printed here (2 nm).
+    for band, centre, width in (("B8A", 864.7, 21.0), ("B12", 2202.4, 175.0)):
+        line = next(l for l in out.splitlines() if l.startswith(f"{band} "))
+        c, lo, hi, w = (float(v) for v in line.split()[1:5])
+        assert c == pytest.approx(centre, abs=0.1) and w == pytest.approx(width, abs=2.0)
+        assert hi - lo == pytest.approx(w, abs=0.011) and lo < c < hi  # printed with 2 decimals
+        assert line.split()[5] == "tabulated"
     assert sum(1 for l in out.splitlines() if l.startswith("B")) == 13
     assert "COPE-GSEG-EOPG-TN-15-0007" in out
 

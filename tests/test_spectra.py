@@ -54,37 +54,91 @@ def test_flat_spectrum_with_any_tabulated_response(level, resp, lo, step):
     np.testing.assert_allclose(resample_spectra(np.full(WL.size, level), WL, s), level, rtol=1e-12)
 
 
+@pytest.mark.parametrize("sensor_id", ["landsat-5-tm", "landsat-7-etm", "landsat-8-oli", "landsat-9-oli",
+                                       "sentinel-2a-msi", "sentinel-2b-msi"])
+@pytest.mark.parametrize("step", [1.0, 10.0])
+def test_flat_spectrum_stays_flat_in_every_builtin_band(sensor_id, step):
+    # definition of a normalised band average: a constant spectrum keeps its value, every band
+    wl = np.arange(300.0, 2700.0 + step / 2, step)
+    out = resample_spectra(np.full((2, wl.size), [[0.0], [0.37]]), wl, sensor_id)
+    assert out.shape == (2, len(get_sensor(sensor_id).bands))
+    np.testing.assert_allclose(out, np.broadcast_to([[0.0], [0.37]], out.shape), rtol=1e-12, atol=1e-15)
+
+
 @pytest.mark.parametrize("sensor", ["landsat-8-oli", "sentinel-2a-msi", "landsat-5-tm"])
 def test_linear_spectrum_gives_value_at_band_centre(sensor):
-    # For a symmetric response the response-weighted mean of a + b*wl is a + b*centre (mathematical
-    # identity: the centroid of a symmetric weight is its centre). Library grid 1 nm, wide enough to
-    # hold every band's whole response so that none is truncated.
+    # The response-weighted mean of a + b*wl is a + b*centroid for any response (linearity of the
+    # integral), and centre_nm is that centroid (trapezoid on the table). Library grid 1 nm, wide enough to
+    # hold every band's whole response. The OLI and MSI tables are sampled every 1 nm, so the integration
+    # grids coincide (1e-9); TM's table has 2-10 nm steps in places where the 1 nm library adds its own
+    # wavelengths, a finer sum than the centroid's: within 1e-6 (measured 6e-7).
     wl = np.arange(200.0, 2900.0, 1.0)
     a, b = 0.05, 1.5e-4
     s = get_sensor(sensor)
     out = resample_spectra(a + b * wl, wl, s)
     expect = a + b * np.array([band.centre_nm for band in s.bands])
-    np.testing.assert_allclose(out, expect, rtol=0, atol=1e-9)
+    np.testing.assert_allclose(out, expect, rtol=0, atol=1e-6 if sensor == "landsat-5-tm" else 1e-9)
 
 
-def test_resample_matches_scipy_quad_reference():
-    # independent reference: adaptive quadrature (scipy.integrate.quad) of response x linearly
-    # interpolated spectrum, divided by the quadrature of the response
+@pytest.mark.parametrize("sensor_id", list_sensors())
+def test_resample_equals_direct_integration_of_the_table(sensor_id):
+    # reference: scipy.integrate.trapezoid of spectrum x response over the response table's own grid, the
+    # library spectrum linearly interpolated onto that grid (np.interp), divided by the trapezoid of the
+    # response. The shipped library (every 5 nm) is coarser than every table: equal to rounding.
     lib = read_shipped_library("demo_bundles")
-    s = get_sensor("sentinel-2a-msi")
-    names = ["B2", "B4", "B5", "B8", "B8A", "B11", "B12"]
+    s = get_sensor(sensor_id)
+    names = [b.name for b in s.bands if b.support()[0] >= lib.wavelengths[0]]
     ours = resample(lib, s, names).spectra
     for k, name in enumerate(names):
         band = s.band(name)
+        t, r = np.asarray(band.response_wavelengths_nm), np.asarray(band.response_values)
+        for i, spec in enumerate(lib.spectra):
+            ref = integrate.trapezoid(np.interp(t, lib.wavelengths, spec) * r, t) / integrate.trapezoid(r, t)
+            assert ours[i, k] == pytest.approx(ref, rel=1e-12, abs=1e-14), (name, lib.names[i])
+
+
+def _quad_band_average(band, wl, spec, lo, hi, kinks):
+    den = integrate.quad(lambda x: float(band.response(x)), lo, hi, limit=800, points=kinks)[0]
+    num = integrate.quad(lambda x: float(band.response(x) * np.interp(x, wl, spec)), lo, hi, limit=800,
+                         points=kinks)[0]
+    return num / den
+
+
+def test_gaussian_resample_matches_scipy_quad_reference():
+    # independent reference: adaptive quadrature (scipy.integrate.quad) of response x linearly
+    # interpolated spectrum, divided by the quadrature of the response; Gaussian bands defined by centre
+    # and width (a user-defined sensor)
+    from unmix.sensors import Band, Sensor
+
+    lib = read_shipped_library("demo_bundles")
+    s = Sensor("gauss", "Gaussian bands", (Band("G", 560.0, 36.0), Band("N", 865.0, 21.0),
+                                           Band("S", 2200.0, 180.0)), "test")
+    ours = resample(lib, s).spectra
+    for k, band in enumerate(s.bands):
         lo, hi = band.support()
-        lo, hi = max(lo, lib.wavelengths[0]), min(hi, lib.wavelengths[-1])
-        kinks = lib.wavelengths[(lib.wavelengths > lo) & (lib.wavelengths < hi)]  # where interp bends
-        den = integrate.quad(lambda x: float(band.response(x)), lo, hi, limit=400, points=[band.centre_nm])[0]
+        lo, hi = max(lo, lib.wavelengths[0]), min(hi, lib.wavelengths[-1])  # S runs past 2500 nm: renormalised
+        kinks = list(lib.wavelengths[(lib.wavelengths > lo) & (lib.wavelengths < hi)]) + [band.centre_nm]
         for i in (0, 2, 8):
-            spec = lib.spectra[i]
-            num = integrate.quad(lambda x: float(band.response(x) * np.interp(x, lib.wavelengths, spec)),
-                                 lo, hi, limit=800, points=kinks)[0]
-            assert ours[i, k] == pytest.approx(num / den, rel=1e-5, abs=1e-7), (name, lib.names[i])
+            ref = _quad_band_average(band, lib.wavelengths, lib.spectra[i], lo, hi, sorted(kinks))
+            assert ours[i, k] == pytest.approx(ref, rel=1e-5, abs=1e-7), (band.name, lib.names[i])
+
+
+def test_library_finer_than_the_table_is_integrated_with_its_own_wavelengths():
+    # A library every 0.25 nm with a narrow dip between the 1 nm samples of the MSI table: resampling
+    # follows the library (reference: scipy.integrate.quad of response x interpolated spectrum, the kinks of
+    # both piecewise-linear curves given), where the table's grid alone would miss most of the dip.
+    s = get_sensor("sentinel-2a-msi")
+    wl = np.arange(600.0, 720.0, 0.25)
+    spec = 0.3 - 0.2 * (np.abs(wl - 664.5) < 0.3)  # dip at 664.25-664.75 nm, between table samples
+    band = s.band("B4")
+    lo, hi = band.support()
+    kinks = sorted(set(wl[(wl > lo) & (wl < hi)]) | set(band.response_wavelengths_nm))
+    ref = _quad_band_average(band, wl, spec, lo, hi, kinks)
+    ours = resample_spectra(spec, wl, s, ["B4"])[0]
+    assert ours == pytest.approx(ref, rel=1e-5)
+    t, r = np.asarray(band.response_wavelengths_nm), np.asarray(band.response_values)
+    table_only = integrate.trapezoid(np.interp(t, wl, spec) * r, t) / integrate.trapezoid(r, t)
+    assert table_only == pytest.approx(0.3, abs=1e-12) and ours < 0.3 - 1e-3
 
 
 def test_band_outside_library_range_raises_naming_band_and_ranges():
@@ -92,17 +146,19 @@ def test_band_outside_library_range_raises_naming_band_and_ranges():
     with pytest.raises(BandMismatchError) as e:
         resample(vnir, "landsat-8-oli", ["B4", "B6"])
     msg = str(e.value)
-    assert "B6" in msg and "400-1000 nm" in msg and "1610" in msg
+    assert "B6" in msg and "400-1000 nm" in msg and "1609" in msg  # centre 1609.1 nm
     # the VNIR bands alone are fine
     assert resample(vnir, "landsat-8-oli", ["B2", "B4", "B5"]).spectra.shape == (1, 3)
 
 
 def test_band_slightly_past_the_edge_is_accepted_within_tolerance():
-    # TM B1 (450-520 nm, Gaussian sigma 29.7 nm) has ~0.2 % of its area below 400 nm: accepted
-    r = resample(_lib(np.full(WL.size, 0.3)), "landsat-5-tm", ["B1"])
+    # TM B1's measured response starts at 420 nm; a library from 440 nm leaves 0.29 % of its area out
+    # (trapezoid of the shipped table below 440 nm): accepted at the default 1 %, refused at 0.01 %
+    wl = np.arange(440.0, 2501.0, 10.0)
+    r = resample(_lib(np.full(wl.size, 0.3), wl=wl), "landsat-5-tm", ["B1"])
     np.testing.assert_allclose(r.spectra, 0.3)
-    with pytest.raises(BandMismatchError):
-        resample(_lib(np.full(WL.size, 0.3)), "landsat-5-tm", ["B1"], outside_tolerance=0.0001)
+    with pytest.raises(BandMismatchError, match="0%"):
+        resample(_lib(np.full(wl.size, 0.3), wl=wl), "landsat-5-tm", ["B1"], outside_tolerance=0.0001)
 
 
 def test_resample_keeps_names_classes_and_sets_sensor():
@@ -111,7 +167,8 @@ def test_resample_keeps_names_classes_and_sets_sensor():
     r = resample(lib, "sentinel-2a-msi", ["B8A", "B4"])
     assert r.names == ("a", "b") and r.classes == ("soil", None)
     assert r.band_names == ("B8A", "B4") and r.sensor == "sentinel-2a-msi"
-    np.testing.assert_allclose(r.wavelengths, [864.7, 664.6])
+    np.testing.assert_allclose(r.wavelengths, [864.7, 664.6], atol=0.05)  # ESA central wavelengths (CHECKS.md)
+    assert set(r.metadata["band_responses"]) == {"B8A", "B4"}
     with pytest.raises(BandMismatchError, match="already resampled"):
         resample(r, "landsat-8-oli")
 

@@ -14,9 +14,9 @@ from ..extraction import CountMethod, ExtractionMethod, estimate_count, extract,
 from ..io.library import read_library, sidecar_path, write_library
 from ..io.stack import open_stack
 from ..pruning import PruningMethod, prune
-from ..sensors import get_sensor
 from ..spectra import SpectralLibrary, on_bands
 from ._common import SENSOR_HELP, check_can_write, echo_summary, overwrite_option, split_names
+from .sensors import RESPONSE_HELP, sensor_from_options
 
 __all__ = ["endmembers"]
 
@@ -55,7 +55,9 @@ def endmembers() -> None:
 
 @endmembers.command("extract")
 @click.argument("stack", nargs=-1, required=True, type=click.Path(path_type=Path))
-@click.option("--sensor", "sensor_id", required=True, metavar="ID", help=SENSOR_HELP)
+@click.option("--sensor", "sensor_id", default=None, metavar="ID", help=SENSOR_HELP)
+@click.option("--response", "response_file", default=None, type=click.Path(dir_okay=False, path_type=Path),
+              metavar="FILE", help=RESPONSE_HELP)
 @click.option("--band-names", default=None, metavar="B1,B2,...",
               help="Names of the bands the files hold, in file order, separated by commas "
                    "(default: the files' band descriptions or the sensor's bands).")
@@ -84,7 +86,8 @@ def endmembers() -> None:
 @overwrite_option
 def extract_command(
     stack: tuple[Path, ...],
-    sensor_id: str,
+    sensor_id: str | None,
+    response_file: Path | None,
     band_names: str | None,
     method: str,
     count_text: str,
@@ -107,7 +110,7 @@ def extract_command(
     count = _parse_count(count_text)
     if not max_angle >= 0:
         raise InputError(f"--max-angle {max_angle} must be a non-negative angle in degrees")
-    sensor = get_sensor(sensor_id)
+    sensor = sensor_from_options(sensor_id, response_file)
     reference = read_library(library_path) if library_path is not None else None
 
     source = stack[0] if len(stack) == 1 else list(stack)
@@ -168,6 +171,8 @@ def extract_command(
         "description": f"{count} endmembers by {method}, from {smp.pixels.shape[0]} pixel-dates "
                        f"sampled over {len(times)} dates",
         "sensor": sensor.id,
+        "band_responses": {b: sensor.band(b).fingerprint for b in bands},
+        "response_file": None if response_file is None else str(response_file),
         "unmix_version": __version__,
         "method": method,
         "seed": seed,

@@ -22,6 +22,7 @@ from ..solvers import Constraint
 from ..spectra import on_bands
 from ._common import check_can_write, echo_summary, out_dir_option, overwrite_option, split_names
 from ._scheduler import dask_scheduler, scheduler_options
+from .sensors import RESPONSE_HELP, sensor_from_options
 
 __all__ = ["fractions", "mesma_bundles"]
 
@@ -108,8 +109,10 @@ def _command_line(ctx: click.Context) -> str:
 @click.option("--library", "library", required=True, type=click.Path(path_type=Path),
               help="Spectral library CSV holding the endmember spectra (full resolution, or already resampled "
                    "to the sensor's bands).")
-@click.option("--sensor", required=True, metavar="ID",
+@click.option("--sensor", default=None, metavar="ID",
               help="Sensor of the stack, e.g. landsat-8-oli or sentinel-2a-msi (`unmix sensors` lists them).")
+@click.option("--response", "response", default=None, type=click.Path(dir_okay=False, path_type=Path),
+              metavar="FILE", help=RESPONSE_HELP)
 @click.option("--band-names", "band_names", default=None, metavar="B2,B3,...",
               help="Sensor band names of the files' bands, in file order. Default: the band descriptions of the "
                    "files if every band has one, else all bands of the sensor.")
@@ -158,7 +161,8 @@ def _command_line(ctx: click.Context) -> str:
               help="Chunk edge [pixels], rounded up to whole file tiles. Default: about 1024, following the "
                    "files' tiles. Memory grows with its square.")
 @click.pass_context
-def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str, band_names: str | None,
+def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str | None, response: Path | None,
+              band_names: str | None,
               endmember_names: str | None, constraint: str, out: Path, overwrite: bool, align: bool,
               resampling: str, dates: Path | None, scale: float | None, offset: float | None, qa: str | None,
               qa_bits: str | None, valid_range: str, mesma: bool, max_rmse: float, cog: bool, compress_level: int, workers: int | None,
@@ -179,9 +183,8 @@ def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str, band_
     from ..io.library import read_library
     from ..io.products import open_product, provenance_attrs, write_cog, write_netcdf
     from ..io.stack import open_stack
-    from ..sensors import get_sensor
 
-    sensor_obj = get_sensor(sensor)
+    sensor_obj = sensor_from_options(sensor, response)
     bands = split_names(band_names, "--band-names")
     wanted = split_names(endmember_names, "--endmembers")
     bits = _int_list(qa_bits, "--qa-bits")

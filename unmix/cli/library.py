@@ -9,10 +9,11 @@ import click
 import numpy as np
 
 from ..errors import InputError
-from ..io.library import read_library, read_response_sensor, sidecar_path, write_library
+from ..io.library import read_library, sidecar_path, write_library
 from ..sensors import get_sensor
 from ..spectra import ndvi, resample
 from ._common import SENSOR_HELP, check_can_write, echo_summary, overwrite_option, split_names
+from .sensors import RESPONSE_HELP, sensor_from_options
 
 __all__ = ["library"]
 
@@ -94,7 +95,7 @@ def show(file: Path, sensor_id: str | None, red: str | None, nir: str | None) ->
 @click.argument("file", type=click.Path(path_type=Path))
 @click.option("--sensor", "sensor_id", default=None, metavar="ID", help=SENSOR_HELP)
 @click.option("--response", "response_file", default=None, type=click.Path(path_type=Path),
-              help="Instead of --sensor: a CSV of tabulated band responses (wavelength_nm, one column per band, 0..1).")
+              help=RESPONSE_HELP)
 @click.option("--band-names", default=None, metavar="B2,B3,...",
               help="Bands to produce, comma-separated, in this order. Default: all bands of the sensor.")
 @click.option("--out", "out", required=True, type=click.Path(dir_okay=False, path_type=Path),
@@ -105,7 +106,8 @@ def resample_cmd(file: Path, sensor_id: str | None, response_file: Path | None, 
     """Resample a full-resolution library FILE to the bands of a sensor.
 
     Each band value is the response-weighted mean of the spectrum (trapezoidal integral of response
-    x reflectance over the integral of the response, on a 0.1 nm or finer grid). A band reaching more
+    x reflectance over the integral of the response, on the response table's own wavelengths, plus
+    the library's where the library is finer). A band reaching more
     than 1 % of its response outside the library's wavelength range is refused. Writes a library
     CSV + JSON sidecar atomically; an existing output is kept unless --overwrite is given.
 
@@ -113,16 +115,15 @@ def resample_cmd(file: Path, sensor_id: str | None, response_file: Path | None, 
     Example:
       unmix library resample lib.csv --sensor landsat-8-oli --band-names B2,B3,B4,B5,B6,B7 --out lib_oli.csv
     """
-    if (sensor_id is None) == (response_file is None):
-        raise InputError("give exactly one of --sensor ID or --response FILE")
     if out.suffix.lower() != ".csv":
         raise InputError(f"--out {out}: the output library must end in .csv")
     check_can_write(out, overwrite)
     check_can_write(sidecar_path(out), overwrite)
-    sensor = get_sensor(sensor_id) if sensor_id is not None else read_response_sensor(response_file)
+    sensor = sensor_from_options(sensor_id, response_file)
     lib = read_library(file)
     res = resample(lib, sensor, split_names(band_names))
-    res = res.with_metadata(resampled_from=str(file))
+    res = res.with_metadata(resampled_from=str(file),
+                            **({"response_file": str(response_file)} if response_file is not None else {}))
     write_library(res, out, overwrite=overwrite)
     echo_summary(f"wrote {out}: {len(res)} spectra x {len(res.band_names)} bands of {sensor.id} "
                  f"({', '.join(res.band_names)})")

@@ -8,6 +8,7 @@ named, ordered tuple of bands; the built-in ones are in :mod:`unmix.sensors.cata
 
 from __future__ import annotations
 
+import hashlib
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 
@@ -15,7 +16,7 @@ import numpy as np
 
 from ..errors import InputError, LibraryFormatError, UnknownNameError
 
-__all__ = ["Band", "Sensor", "gaussian_response", "tabulated_sensor", "FWHM_TO_SIGMA"]
+__all__ = ["Band", "Sensor", "gaussian_response", "half_maximum_points", "tabulated_sensor", "FWHM_TO_SIGMA"]
 
 #: sigma of a Gaussian = FWHM * FWHM_TO_SIGMA  (FWHM = 2 sqrt(2 ln 2) sigma)
 FWHM_TO_SIGMA = 1.0 / (2.0 * np.sqrt(2.0 * np.log(2.0)))
@@ -66,9 +67,10 @@ class Band:
     name : str
         Band name as the agency writes it (``"B4"``, ``"B8A"``).
     centre_nm : float
-        Band centre [nm]; for a tabulated band the response-weighted centroid.
+        Band centre [nm]; for a tabulated band the response-weighted mean wavelength (centroid).
     fwhm_nm : float
-        Full width at half maximum [nm]; for a tabulated band the width where the response crosses 0.5.
+        Full width at half maximum [nm]; for a tabulated band the width between the outermost crossings
+        of 0.5 (see :func:`half_maximum_points`).
     response_wavelengths_nm : tuple of float, optional
         Wavelengths [nm] of a tabulated response (strictly increasing). None for a Gaussian band.
     response_values : tuple of float, optional
@@ -111,6 +113,33 @@ class Band:
         if self.tabulated:
             return np.interp(wl, self.response_wavelengths_nm, self.response_values, left=0.0, right=0.0)
         return gaussian_response(wl, self.centre_nm, self.fwhm_nm)
+
+    def half_maximum_nm(self) -> tuple[float, float]:
+        """Lower and upper wavelength [nm] where the response crosses half its maximum.
+
+        A tabulated band: the outermost crossings, linearly interpolated (:func:`half_maximum_points`);
+        a Gaussian band: ``centre -/+ fwhm / 2``.
+        """
+        if self.tabulated:
+            return half_maximum_points(self.response_wavelengths_nm, self.response_values)
+        return self.centre_nm - self.fwhm_nm / 2, self.centre_nm + self.fwhm_nm / 2
+
+    @property
+    def fingerprint(self) -> str:
+        """Short digest of the response (name, model and numbers): equal digests mean the same band.
+
+        Recorded in the sidecar of a resampled library so that a library resampled with one set of
+        responses is recognised (or refused) for a stack described by another.
+        """
+        h = hashlib.sha256(self.name.encode())
+        if self.tabulated:
+            h.update(b"table")
+            h.update(np.asarray(self.response_wavelengths_nm, dtype="<f8").tobytes())
+            h.update(np.asarray(self.response_values, dtype="<f8").tobytes())
+        else:
+            h.update(b"gaussian")
+            h.update(np.asarray([self.centre_nm, self.fwhm_nm], dtype="<f8").tobytes())
+        return h.hexdigest()[:16]
 
     def support(self) -> tuple[float, float]:
         """Wavelength interval [nm] outside which the response is zero."""
@@ -197,6 +226,60 @@ class Sensor:
         return self.band(band).response(wavelengths)
 
 
+def _own_stretch(wl: np.ndarray, row: np.ndarray) -> slice:
+    """The rows of a (shared) response table that belong to one band.
+
+    From the first to the last non-zero sample, extended on each side by the neighbouring zero sample
+    when it lies no farther away than the band's widest sampling step: that zero closes the band's own
+    curve. A larger gap means the band's own table ended at its last non-zero sample (in a table shared by
+    several bands the next row belongs to another band's grid), and the response is zero beyond it
+    instead of ramping down across the gap.
+    """
+    nz = np.flatnonzero(row > 0)
+    i0, i1 = int(nz[0]), int(nz[-1])
+    step = float(np.max(np.diff(wl[i0:i1 + 1]))) if i1 > i0 else np.inf
+    if i0 > 0 and wl[i0] - wl[i0 - 1] <= step:
+        i0 -= 1
+    if i1 < wl.size - 1 and wl[i1 + 1] - wl[i1] <= step:
+        i1 += 1
+    return slice(i0, i1 + 1)
+
+
+def half_maximum_points(wavelengths_nm, response) -> tuple[float, float]:
+    """Wavelengths [nm] of the outermost crossings of half the maximum of a tabulated response.
+
+    The response is taken as linear between the table's samples; the first and last samples at or above
+    half maximum are followed outwards to the neighbouring sample below it and the crossing is linearly
+    interpolated. A response still above half maximum at the end of the table gives that end.
+
+    Parameters
+    ----------
+    wavelengths_nm : (n,) array_like
+        Strictly increasing wavelengths [nm].
+    response : (n,) array_like
+        Relative response, >= 0 and not all zero (any scale).
+
+    Returns
+    -------
+    (float, float)
+        Lower and upper half-maximum wavelength [nm]; their difference is the band's full width at half
+        maximum, their mid-point the centre as NASA's OLI band summary defines it.
+
+    Examples
+    --------
+    >>> half_maximum_points([600.0, 640.0, 660.0, 680.0, 720.0], [0, 1, 1, 1, 0])
+    (620.0, 700.0)
+    """
+    wl = np.asarray(wavelengths_nm, dtype=np.float64)
+    r = np.asarray(response, dtype=np.float64)
+    half = 0.5 * r.max()
+    above = np.flatnonzero(r >= half)
+    i0, i1 = above[0], above[-1]
+    lo = wl[i0] if i0 == 0 else np.interp(half, [r[i0 - 1], r[i0]], [wl[i0 - 1], wl[i0]])
+    hi = wl[i1] if i1 == wl.size - 1 else np.interp(half, [r[i1 + 1], r[i1]], [wl[i1 + 1], wl[i1]])
+    return float(lo), float(hi)
+
+
 def tabulated_sensor(
     sensor_id: str,
     wavelengths_nm,
@@ -228,8 +311,11 @@ def tabulated_sensor(
     Returns
     -------
     Sensor
-        Bands carry their table; ``centre_nm`` is the response-weighted centroid and ``fwhm_nm`` the
-        width between the outermost half-maximum crossings.
+        Bands carry their own stretch of the table (its non-zero samples, plus the neighbouring zero on
+        each side when no farther than the band's widest sampling step; zero response beyond);
+        ``centre_nm`` is the response-weighted mean wavelength (trapezoidal sums on the table's grid)
+        and ``fwhm_nm`` the width between the outermost half-maximum crossings
+        (:func:`half_maximum_points`).
 
     Examples
     --------
@@ -252,11 +338,10 @@ def tabulated_sensor(
                 f"sensor {sensor_id}, band {name}: response must be finite, >= 0 and not all zero"
             )
         row = row / row.max()
-        centre = float(np.trapezoid(row * wl, wl) / np.trapezoid(row, wl))
-        above = np.flatnonzero(row >= 0.5)
-        i0, i1 = above[0], above[-1]
-        lo = wl[i0] if i0 == 0 else np.interp(0.5, [row[i0 - 1], row[i0]], [wl[i0 - 1], wl[i0]])
-        hi = wl[i1] if i1 == wl.size - 1 else np.interp(0.5, [row[i1 + 1], row[i1]], [wl[i1 + 1], wl[i1]])
-        fwhm = float(hi - lo) if hi > lo else float(np.min(np.diff(wl)))
-        bands.append(Band(name, centre, fwhm, tuple(wl.tolist()), tuple(row.tolist())))
+        keep = _own_stretch(wl, row)
+        bwl, row = wl[keep], row[keep]
+        centre = float(np.trapezoid(row * bwl, bwl) / np.trapezoid(row, bwl))
+        lo, hi = half_maximum_points(bwl, row)
+        fwhm = hi - lo if hi > lo else float(np.min(np.diff(bwl)))
+        bands.append(Band(name, centre, fwhm, tuple(bwl.tolist()), tuple(row.tolist())))
     return Sensor(sensor_id, title or sensor_id, tuple(bands), source, red=red, nir=nir)

@@ -5,12 +5,24 @@ Resampling (:func:`resample`, :func:`resample_spectra`) computes for each band
     R_band = integral(S(l) * rho(l) dl) / integral(S(l) dl)
 
 with S the band's relative spectral response and rho the spectrum, linearly interpolated between the
-library's wavelengths. The integrals are trapezoidal sums on a fine common grid: the band's support
-(where S > 0) sampled every min(0.1 nm, FWHM / 400), plus every library wavelength inside it, clipped to
-the library's range. The whole operation is one weight matrix (n_bands, n_wl) whose rows sum to 1, so a
-flat spectrum keeps its value. A band whose response has more than ``outside_tolerance`` (default 1 %)
-of its area outside the library's wavelength range raises :class:`unmix.errors.BandMismatchError`;
-below that, the part inside the range is renormalised.
+library's wavelengths. Both integrals are trapezoidal sums over one grid per band:
+
+* a **tabulated** band (every built-in sensor, any response file): the table's own wavelengths within
+  the band's support. When the library is as coarse as the table or coarser (median steps inside the
+  band) this is exactly the direct integration of the table with the spectrum interpolated onto it,
+  ``trapezoid(S * rho_interp, table_wl) / trapezoid(S, table_wl)``; a library finer than the table adds
+  its own wavelengths, so that no detail of the spectrum between the table's samples is skipped;
+* a **Gaussian** band (a sensor defined by centre and width): its support sampled every
+  min(0.1 nm, FWHM / 400) plus every library wavelength inside it.
+
+The whole operation is one weight matrix (n_bands, n_wl) whose rows sum to 1, so a flat spectrum keeps
+its value. A band whose response has more than ``outside_tolerance`` (default 1 %) of its area outside
+the library's wavelength range raises :class:`unmix.errors.BandMismatchError`; below that, the part
+inside the range is renormalised.
+
+A resampled library records its sensor id and a digest of each band's response
+(``metadata["band_responses"]``, :attr:`unmix.sensors.Band.fingerprint`); :func:`on_bands` accepts it
+for a stack whose sensor has the same id or the same responses.
 """
 
 from __future__ import annotations
@@ -40,13 +52,19 @@ def _trapz_weights(x: np.ndarray) -> np.ndarray:
 
 def _band_grid(band: Band, lib_wl: np.ndarray) -> np.ndarray:
     lo, hi = band.support()
-    step = min(0.1, band.fwhm_nm / 400.0)  # trapezoid error ~ (step/sigma)^2/12 < 3e-6 relative
-    n = max(int(np.ceil((hi - lo) / step)) + 1, 3)
-    parts = [np.linspace(lo, hi, n), lib_wl[(lib_wl > lo) & (lib_wl < hi)]]
+    inside = lib_wl[(lib_wl > lo) & (lib_wl < hi)]
     if band.tabulated:
         t = np.asarray(band.response_wavelengths_nm)
-        parts.append(t[(t >= lo) & (t <= hi)])
-    return np.unique(np.concatenate(parts))
+        t = t[(t >= lo) & (t <= hi)]
+        if inside.size < 2 or np.median(np.diff(inside)) >= np.median(np.diff(t)):
+            # library as coarse as the table or coarser: the table's grid (plus the library's ends, if
+            # the band runs past them, so that the part inside the library's range is integrated whole)
+            ends = lib_wl[[0, -1]]
+            inside = ends[(ends > lo) & (ends < hi)]
+        return np.unique(np.concatenate([t, inside]))
+    step = min(0.1, band.fwhm_nm / 400.0)  # trapezoid error ~ (step/sigma)^2/12 < 3e-6 relative
+    n = max(int(np.ceil((hi - lo) / step)) + 1, 3)
+    return np.unique(np.concatenate([np.linspace(lo, hi, n), inside]))
 
 
 def band_weights(
@@ -183,7 +201,8 @@ def resample(
     -------
     SpectralLibrary
         Same names, classes and metadata; ``wavelengths`` are the band centres [nm], ``band_names`` the
-        bands, and ``metadata["sensor"]`` the sensor id.
+        bands, ``metadata["sensor"]`` the sensor id and ``metadata["band_responses"]`` the digest of each
+        band's response.
 
     Raises
     ------
@@ -211,6 +230,7 @@ def resample(
     md = dict(library.metadata)
     md.pop("units", None)
     md["sensor"] = s.id
+    md["band_responses"] = {b.name: b.fingerprint for b in bands}
     return SpectralLibrary(
         np.array([b.centre_nm for b in bands]),
         values,
@@ -218,6 +238,34 @@ def resample(
         library.classes,
         tuple(b.name for b in bands),
         md,
+    )
+
+
+def _check_same_responses(library: SpectralLibrary, sensor: Sensor, bands: list[str], where: str) -> None:
+    """Refuse a resampled library whose bands are not the stack sensor's bands.
+
+    Accepted: the same responses (digests recorded at resampling equal the sensor's, whatever the
+    ids), or the same sensor id when the library records no digests (libraries written before they
+    were recorded, or by hand). Refused: another sensor id without equal digests, or the same id with
+    different digests (resampled with other responses under the same name).
+    """
+    recorded = library.metadata.get("band_responses")
+    lib_id = str(library.sensor) if library.sensor else None
+    if isinstance(recorded, dict) and all(b in recorded for b in bands):
+        ours = {b: sensor.band(b).fingerprint for b in bands if b in sensor.band_names}
+        differ = [b for b in bands if recorded[b] != ours.get(b)]
+        if not differ:
+            return
+        if lib_id == sensor.id:
+            raise BandMismatchError(
+                f"{where} was resampled to {lib_id} with other responses for band {', '.join(differ)} than the "
+                f"stack's sensor {sensor.id} has now; resample the full-resolution library again"
+            )
+    elif lib_id is None or lib_id == sensor.id:
+        return
+    raise BandMismatchError(
+        f"{where} is resampled to {lib_id or 'unnamed'} bands but the stack's sensor is {sensor.id}; use a library "
+        f"resampled to {sensor.id} (or with the same --response file) or the full-resolution library"
     )
 
 
@@ -238,7 +286,8 @@ def on_bands(library: SpectralLibrary, sensor, band_names, *, where: str = "the 
     Raises
     ------
     BandMismatchError
-        A resampled library of another sensor, or one lacking a band of the stack.
+        A resampled library of another sensor (other id and other responses, or the same id with other
+        responses), or one lacking a band of the stack.
 
     Examples
     --------
@@ -251,11 +300,7 @@ def on_bands(library: SpectralLibrary, sensor, band_names, *, where: str = "the 
     bands = [str(b) for b in band_names]
     if not library.resampled:
         return resample(library, sensor, bands)
-    if library.sensor and str(library.sensor) != sensor.id:
-        raise BandMismatchError(
-            f"{where} is resampled to {library.sensor} bands but the stack's sensor is {sensor.id}; use a library "
-            f"resampled to {sensor.id} or the full-resolution library"
-        )
+    _check_same_responses(library, sensor, bands, where)
     missing = [b for b in bands if b not in library.band_names]
     if missing:
         raise BandMismatchError(

@@ -44,8 +44,11 @@ Response file format
 --------------------
 A tabulated spectral response is a CSV with first column ``wavelength_nm`` (or ``wavelength_um``) and one
 column per band (header = band name) holding the relative response 0..1 (any positive scale is divided
-by the band's maximum). Read it with :func:`read_response` and build a sensor with
-:func:`read_response_sensor` or :func:`unmix.sensors.tabulated_sensor`.
+by the band's maximum; noise down to -0.01 is set to 0). It is the layout of the built-in sensors'
+tables in ``unmix/data/``, and what ``--response FILE`` reads. Read it with :func:`read_response` and
+build a sensor with :func:`read_response_sensor` (id = the file's stem) or
+:func:`unmix.sensors.tabulated_sensor`. Every failure raises :class:`unmix.errors.LibraryFormatError`
+naming the file, the line and the column.
 """
 
 from .reader import REFLECTANCE_RANGE, read_library, sidecar_path

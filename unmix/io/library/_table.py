@@ -12,7 +12,7 @@ from ...errors import LibraryFormatError, LibraryReadError
 _WL_HEADERS = {"wavelength_nm": 1.0, "wavelength_um": 1000.0}
 
 
-def _read_rows(path: Path) -> list[tuple[int, list[str]]]:
+def _read_rows(path: Path, what: str = "library") -> list[tuple[int, list[str]]]:
     try:
         with open(path, newline="", encoding="utf-8-sig") as f:
             reader = csv.reader(f)
@@ -26,13 +26,13 @@ def _read_rows(path: Path) -> list[tuple[int, list[str]]]:
             except csv.Error as exc:
                 raise LibraryFormatError(f"{path}, line {reader.line_num}: not valid CSV ({exc})") from None
     except FileNotFoundError:
-        raise LibraryReadError(f"library file {path} does not exist; check the path") from None
+        raise LibraryReadError(f"{what} file {path} does not exist; check the path") from None
     except UnicodeDecodeError as exc:
         raise LibraryFormatError(f"{path}: not UTF-8 text ({exc}); save the file as UTF-8 CSV") from None
     except IsADirectoryError:
-        raise LibraryReadError(f"{path} is a folder, not a library CSV file") from None
+        raise LibraryReadError(f"{path} is a folder, not a {what} CSV file") from None
     except OSError as exc:
-        raise LibraryReadError(f"cannot open library file {path}: {exc.strerror or exc}") from None
+        raise LibraryReadError(f"cannot open {what} file {path}: {exc.strerror or exc}") from None
     if not rows:
         raise LibraryFormatError(f"{path}: the file is empty; expected a header line starting with wavelength_nm")
     return rows

@@ -47,7 +47,7 @@ def read_response(path: str | os.PathLike) -> ResponseTable:
     band needs a positive value somewhere; each band is divided by its maximum.
     """
     path = Path(path)
-    rows = _read_rows(path)
+    rows = _read_rows(path, "response")
     hline, header = rows[0]
     h = header[0].strip().lower()
     if h not in _WL_HEADERS:
@@ -61,8 +61,11 @@ def read_response(path: str | os.PathLike) -> ResponseTable:
     for k, n in enumerate(names, start=2):
         if not n:
             raise LibraryFormatError(f"{path}, line {hline}, column {k}: empty band name")
-        if names.count(n) > 1:
-            raise LibraryFormatError(f"{path}, line {hline}, column {k}: band name {n!r} repeats; names must be unique")
+        if n in names[: k - 2]:
+            raise LibraryFormatError(
+                f"{path}, line {hline}, column {k}: band name {n!r} repeats column {names.index(n) + 2}; "
+                "band names must be unique"
+            )
     if len(rows) < 3:
         raise LibraryFormatError(f"{path}: a response table needs at least two data lines")
     ncol = len(header)
@@ -87,7 +90,10 @@ def read_response(path: str | os.PathLike) -> ResponseTable:
         prev_line = line
     for j, n in enumerate(names):
         if not np.any(resp[j] > 0):
-            raise LibraryFormatError(f"{path}, column {n}: the band's response is zero everywhere")
+            raise LibraryFormatError(
+                f"{path}, lines {rows[1][0]}-{rows[-1][0]}, column {n}: the band's response is zero everywhere; "
+                "give its relative response (0..1) or drop the column"
+            )
         resp[j] /= resp[j].max()
     return ResponseTable(wl, tuple(names), resp, str(path))
 
