@@ -49,7 +49,7 @@ def write_landsat_scene(root: Path, refl: np.ndarray, *, qa: np.ndarray | None =
     bands = TM_BANDS if sensor in ("LT05", "LE07", "LT04") else OLI_BANDS
     folder = root / pid
     transform = Affine(30.0, 0.0, origin[0], 0.0, -30.0, origin[1])
-    dn = np.round((refl - SR_OFFSET) / SR_SCALE).astype(np.uint16)
+    dn = np.round(np.nan_to_num((refl - SR_OFFSET) / SR_SCALE)).astype(np.uint16)
     dn[~np.isfinite(refl)] = 0  # fill
     for k, band in enumerate(bands):
         if band not in skip:

@@ -48,7 +48,8 @@ def grid_from_raster(path: str | Path) -> TargetGrid:
 def grid_from_bounds(crs: Any, resolution: float, bounds: tuple[float, float, float, float]) -> TargetGrid:
     """A grid from ``--crs``, ``--resolution`` [CRS units] and ``--bounds`` (left, bottom, right, top).
 
-    The bounds are expanded outwards to whole pixels aligned on multiples of the resolution.
+    The grid's origin is the top left corner (left, top); the right and bottom edges are moved
+    outwards to whole pixels.
 
     Raises
     ------
@@ -72,9 +73,8 @@ def grid_from_bounds(crs: Any, resolution: float, bounds: tuple[float, float, fl
     left, bottom, right, top = (float(v) for v in bounds)
     if not (right > left and top > bottom):
         raise InputError(f"--bounds must be left,bottom,right,top with right > left and top > bottom, got {bounds}")
-    left, bottom = math.floor(left / res) * res, math.floor(bottom / res) * res
-    right, top = math.ceil(right / res) * res, math.ceil(top / res) * res
-    width, height = round((right - left) / res), round((top - bottom) / res)
+    # the grid starts at the top left corner given; right and bottom edges grow to whole pixels
+    width, height = math.ceil((right - left) / res - 1e-9), math.ceil((top - bottom) / res - 1e-9)
     if width * height > 2**31:
         raise InputError(f"--bounds and --resolution make a grid of {width} x {height} pixels; that is too large")
     return TargetGrid(crs.to_wkt(), (res, 0.0, left, 0.0, -res, top), width, height)

@@ -90,6 +90,8 @@ def open_archive(
     masks = dict(masks or {})
     for kind in ("landsat-qa-pixel", "sentinel-2-scl"):
         masks[kind] = check_mask(kind, masks.get(kind, default_mask(kind)))
+    for s in scenes:
+        check_scene_files(s, bands_for_roles(s.sensor, roles))
     grid = grid or _default_grid(scenes, roles)
 
     by_day: dict[np.datetime64, list[Scene]] = {}
@@ -135,6 +137,41 @@ def open_archive(
                "transform": tuple(grid.transform), "grid_mapping": "spatial_ref", "input_files": tuple(files),
                "masks": "; ".join(f"{k}: {', '.join(v)}" for k, v in masks.items()), "mask_share": float(mask_share)},
     )
+
+
+def check_scene_files(scene: Scene, bands: Sequence[str]) -> None:
+    """Every band file and the quality band open, have a CRS, and cover the same ground (headers only).
+
+    Raises StackReadError naming the product and the file (a file that does not open, e.g. a damaged
+    JPEG 2000, or a quality band whose extent differs from the bands').
+    """
+    import rasterio
+    from rasterio.errors import RasterioIOError
+
+    extent = None
+    for name, path in [*((b, scene.bands[b]) for b in bands), ("quality", scene.quality)]:
+        if path is None:
+            continue
+        try:
+            with rasterio.open(path) as src:
+                if src.crs is None:
+                    raise StackReadError(f"{scene.product_id}: {path} has no CRS; the product is damaged")
+                bounds, shape, res = tuple(src.bounds), (src.height, src.width), abs(src.transform.a)
+        except RasterioIOError as exc:
+            cause = exc.__cause__ or exc.__context__
+            raise StackReadError(f"{scene.product_id}: cannot open {path} ({exc}{f'; {cause}' if cause else ''}); "
+                                 "the file is damaged or incomplete: download the product again") from None
+        if extent is None:
+            extent = (name, bounds, shape, res)
+            continue
+        ref_name, ref_bounds, ref_shape, ref_res = extent
+        tol = max(res, ref_res) / 2
+        if any(abs(a - b) > tol for a, b in zip(bounds, ref_bounds)):
+            what = "quality band" if name == "quality" else f"band {name}"
+            raise StackReadError(
+                f"{scene.product_id}: the {what} ({path}, {shape[0]} x {shape[1]} pixels of {res:g}) does not cover "
+                f"the same ground as band {ref_name} ({ref_shape[0]} x {ref_shape[1]} pixels of {ref_res:g}); the "
+                "product is inconsistent: download it again")
 
 
 def _split(total: int, step: int) -> tuple[int, ...]:

@@ -117,7 +117,7 @@ def _read_on_grid(src, grid: TargetGrid, window: tuple, nodata: float) -> tuple[
     finer = max(abs(src.transform.a), abs(src.transform.e)) < 0.99 * min(grid.resolution)
     with WarpedVRT(src, crs=CRS.from_wkt(grid.crs_wkt), transform=Affine(*grid.transform), width=grid.width,
                    height=grid.height, resampling=Resampling.average if finer else Resampling.nearest,
-                   src_nodata=nodata, nodata=nodata) as vrt:
+                   src_nodata=nodata, nodata=nodata, dtype="float32") as vrt:  # no rounding of averages
         raw = vrt.read(1, window=Window(col0, row0, w, h), out_dtype="float32")
         valid = vrt.read_masks(1, window=Window(col0, row0, w, h)) > 0
     return raw, valid & (raw != np.float32(nodata))
@@ -139,12 +139,13 @@ def _masked_on_grid(src, grid: TargetGrid, window: tuple, kind: str, names: tupl
         qa = src.read(1, window=Window(col0 + c, row0 + r, w, h), boundless=True, fill_value=0, masked=True)
         return masked(kind, qa.filled(0), names) | np.ma.getmaskarray(qa) | _outside(src, r + row0, c + col0, h, w)
     dst_t = Affine(*grid.window_transform(row0, col0))
-    left, top = dst_t * (0, 0)
-    right, bottom = dst_t * (w, h)
+    left, top = dst_t @ (0, 0)
+    right, bottom = dst_t @ (w, h)
     bounds = transform_bounds(CRS.from_wkt(grid.crs_wkt), src.crs, min(left, right), min(top, bottom),
                               max(left, right), max(top, bottom), densify_pts=21)
-    win = from_bounds(*bounds, transform=src.transform).round_offsets("floor").round_lengths("ceil")
-    win = Window(win.col_off - 1, win.row_off - 1, win.width + 2, win.height + 2)  # a pixel of margin
+    fb = from_bounds(*bounds, transform=src.transform)
+    c0, r0 = math.floor(fb.col_off) - 1, math.floor(fb.row_off) - 1  # a pixel of margin
+    win = Window(c0, r0, math.ceil(fb.col_off + fb.width) + 1 - c0, math.ceil(fb.row_off + fb.height) + 1 - r0)
     qa = src.read(1, window=win, boundless=True, fill_value=0, masked=True)
     bad = (masked(kind, qa.filled(0), names) | np.ma.getmaskarray(qa)).astype(np.float32)
     # pixels outside the file count as masked (a scene covers only part of the grid)
