@@ -190,6 +190,18 @@ def test_written_product_reads_back_bit_for_bit(tmp_path, complevel):
     path = write_netcdf(ds, tmp_path / "p.nc", complevel=complevel, scheduler="threads")
     with h5py.File(path, "r") as f:
         got_h5 = f["fractions"][...], f["count"][...]
+        dset = f["fractions"].id
+        assert f["fractions"].chunks == (1, 1, 128, 96)  # the dask blocks' size
+        assert dset.get_num_chunks() == 2 * 3 * 2 * 2
+        for i in range(dset.get_num_chunks()):  # every stored chunk is a zlib stream of the shuffled values
+            t, e, y, x = offset = dset.get_chunk_info(i).chunk_offset
+            filter_mask, raw = dset.read_direct_chunk(offset)
+            assert filter_mask == 0
+            stored = np.frombuffer(_unshuffle_by_definition(zlib.decompress(raw), 4), np.uint32)  # reference: zlib
+            want = np.full((128, 96), np.float32(np.nan)).view(np.uint32)  # edge chunks: padded with the fill
+            part = frac[t, e, y:y + 128, x:x + 96].view(np.uint32)
+            want[:part.shape[0], :part.shape[1]] = part
+            np.testing.assert_array_equal(stored.reshape(128, 96), want)
     with netCDF4.Dataset(path) as nc:
         nc.set_auto_mask(False)
         got_nc = np.asarray(nc["fractions"][...]), np.asarray(nc["count"][...])

@@ -15,9 +15,9 @@ shapes, ``zlib``/``shuffle`` filters) without writing the lazy variables; each d
 The file stays an ordinary NetCDF4/HDF5 file: the variables carry HDF5's standard shuffle and
 deflate filters (as netCDF4 defined them, with the requested level in the filter parameters, which
 decoders do not need), and every stored chunk is a standard zlib stream of the shuffled bytes, so any
-netCDF/HDF5/GDAL reader decodes it with its own inflate. ISA-L's deflate at its level 1 is about ten
-times as fast as zlib's level 1 on shuffled float32 fractions for a file within 1 % of the same size
-(``benchmarks/bench_encoder.py``).
+netCDF/HDF5/GDAL reader decodes it with its own inflate. Shuffle + ISA-L's deflate at its level 1
+is six to nine times as fast as shuffle + zlib's level 1 on float32 fractions, for chunks 0.4 %
+larger (``benchmarks/bench_encoder.py``).
 
 Where the writes happen
 -----------------------
@@ -53,6 +53,7 @@ _H5Z_FILTER_SHUFFLE = 2
 #: NetCDF levels 1 up to this one are compressed by ISA-L at the same level (ISA-L's levels are 0-3).
 _ISAL_MAX_LEVEL = 3
 
+
 def shuffle_bytes(values: np.ndarray) -> np.ndarray:
     """HDF5's shuffle filter: the first bytes of all values, then all second bytes, and so on.
 
@@ -80,11 +81,12 @@ def shuffle_bytes(values: np.ndarray) -> np.ndarray:
 def zlib_chunk(values: np.ndarray, level: int, shuffle: bool = True) -> bytes:
     """The zlib stream (RFC 1950) that HDF5's shuffle + deflate filters decode into ``values``.
 
-    Levels 1-3 use ISA-L's deflate at the same level: on shuffled float32 fractions its levels
-    give about the same size (0.76 of raw at level 1, within 1 % of zlib's level 1) at 0.4-0.9 GB/s,
-    and level 3 is the slowest but the smallest for integer maps. Levels 4-9 use CPython's zlib at
-    that level, for a file a few percent smaller at a tenth of the speed or less (level 0: zlib's
-    stored blocks). Any inflate decodes both.
+    Levels 1-3 use ISA-L's deflate at the same level. Its levels differ little in size: 0.757,
+    0.756 and 0.763 of raw for shuffled float32 fractions at levels 1, 2 and 3 (zlib's level 1:
+    0.754), and level 3 is the slowest (about 350-500 MB/s at level 1, two thirds of that at level 3,
+    shuffle included, one thread of the development machine). Levels 4-9 use CPython's zlib at that
+    level, for chunks a few percent smaller (0.737 at level 6) at a tenth of the speed or less;
+    level 0 gives zlib's stored blocks. Any inflate decodes both.
 
     Parameters
     ----------
