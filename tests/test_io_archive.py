@@ -179,3 +179,37 @@ def test_quality_decoding_examples():
     # QA_PIXEL 21824 = clear (bits 6, 8, 10, 12, 14); 22280 = cloud; 1 = fill (LSDS-1619 examples, from memory)
     assert masked("landsat-qa-pixel", np.array([21824, 22280, 1]), ("fill", "cloud")).tolist() == [False, True, True]
     assert masked("sentinel-2-scl", np.arange(12), ("cloud_high", "snow")).nonzero()[0].tolist() == [9, 11]
+
+
+def test_record_switching_sensor_unmixed_with_each_sensors_endmembers(tmp_path):
+    # No real change: the same cover fractions observed by TM, OLI and MSI. Each date's reflectance is
+    # mixed from the shipped (invented) library resampled with that sensor's measured responses; unmixing
+    # each date with its own sensor's endmembers gives back the fractions, the OLI endmembers for every
+    # date do not (the pseudo-change the per-sensor path removes).
+    from unmix.cube import unmix_cube
+    from unmix.io.library import read_shipped_library
+    from unmix.sensors.roles import bands_for_roles
+    from unmix.spectra import resample
+
+    lib = read_shipped_library("demo_library").select(["green_vegetation", "bright_soil", "shade"])
+    rng = np.random.default_rng(10)
+    # constant over 60 m blocks, so that no 20 m Sentinel-2 pixel straddles two covers
+    frac = np.kron(rng.dirichlet(np.ones(3), size=(15, 15)), np.ones((2, 2, 1)))  # (y, x, endmember)
+    spectra = {s: resample(lib, s, bands_for_roles(s)).spectra for s in ("landsat-5-tm", "landsat-8-oli",
+                                                                            "sentinel-2a-msi")}
+    refl = {s: np.moveaxis(frac @ m, -1, 0) for s, m in spectra.items()}
+    write_landsat_scene(tmp_path, refl["landsat-5-tm"], sensor="LT05", date="19950704")
+    write_landsat_scene(tmp_path, refl["landsat-8-oli"], sensor="LC08", date="20150704")
+    write_s2_product(tmp_path, np.kron(refl["sentinel-2a-msi"], np.ones((1, 3, 3))), date="20220704",
+                     driver="GTiff")
+    cube = open_archive(tmp_path)
+    assert cube["sensor"].values.tolist() == ["landsat-5-tm", "landsat-8-oli", "sentinel-2a-msi"]
+    ds = unmix_cube(cube, spectra, names=lib.names).compute()
+    truth = np.moveaxis(frac, -1, 0)
+    for t in range(3):
+        # DN quantisation (2.75e-5, 1e-4 reflectance) and 20 m bands averaged from 10 m bound the error
+        np.testing.assert_allclose(ds["fractions"].values[t], truth, atol=2e-3)
+    assert ds["valid_count"].values.min() == 3
+    assert ds["endmember_spectra"].dims == ("sensor_id", "endmember", "band")
+    one = unmix_cube(cube, spectra["landsat-8-oli"], names=lib.names).compute()
+    assert np.abs(one["fractions"].values[0] - truth).max() > 0.01  # TM dates with OLI endmembers: biased

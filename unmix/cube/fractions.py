@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import threading
 import warnings
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numba
@@ -86,9 +86,11 @@ def unmix_cube(
         Reflectance [unitless, 0-1], float32, usually dask-backed (see
         :func:`unmix.io.stack.open_stack`). NaN = no data; a pixel with a NaN band gets NaN
         fractions and RMSE on that date.
-    endmembers : (endmember, band) array_like or xarray.DataArray
+    endmembers : (endmember, band) array_like or xarray.DataArray, or mapping of str to those
         Endmember spectra [reflectance] in the cube's band order; a DataArray with a ``band``
-        coordinate is matched to the cube's bands by name.
+        coordinate is matched to the cube's bands by name. A mapping gives the spectra of each
+        sensor (keys: the values of the cube's ``sensor`` coordinate on ``time``): each date is
+        unmixed with the endmembers resampled to the sensor that observed it.
     names : sequence of str
         One name per endmember (the ``endmember`` coordinate).
     constraint : Constraint or str, default "fcls"
@@ -139,6 +141,9 @@ def unmix_cube(
     """
     cube = reflectance_cube(cube, "unmix_cube")
     names = tuple(str(n) for n in names)
+    if isinstance(endmembers, Mapping):
+        return _unmix_by_sensor(cube, endmembers, names=names, constraint=constraint, weights=weights,
+                                valid_range=valid_range)
     band_labels = [str(b) for b in cube["band"].values] if "band" in cube.coords else None
 
     if isinstance(endmembers, xr.DataArray):
@@ -194,6 +199,34 @@ def unmix_cube(
                                                             if "time" not in v.dims})
     ds = _finish(cube, fractions, rmse, counts, M, con, w, names, band_labels)
     ds["implausible_count"] = implausible
+    return ds
+
+
+def _unmix_by_sensor(cube: xr.DataArray, endmembers: Mapping[str, Any], **kwargs: Any) -> xr.Dataset:
+    """unmix_cube of a record that switches sensor: each sensor's dates with that sensor's endmembers."""
+    if "sensor" not in cube.coords or cube["sensor"].dims != ("time",):
+        raise InputError("endmembers per sensor need a 'sensor' coordinate on the cube's time axis (as "
+                         "unmix.io.archive.open_archive gives); pass one endmember array for a one-sensor stack")
+    sensors = [str(v) for v in cube["sensor"].values]
+    missing = sorted(set(sensors) - {str(k) for k in endmembers})
+    if missing:
+        raise BandMismatchError(f"no endmember spectra for sensor(s) {', '.join(missing)} of the stack; resample "
+                                "the library to every sensor of the record")
+    parts, order = [], []
+    for sensor in dict.fromkeys(sensors):
+        idx = [i for i, s in enumerate(sensors) if s == sensor]
+        order += idx
+        parts.append(unmix_cube(cube.isel(time=idx), endmembers[sensor], **kwargs))
+    per_time = ["fractions", "rmse", "implausible_count"]
+    ds = xr.concat([p[per_time] for p in parts], dim="time", combine_attrs="override", coords="minimal",
+                   compat="override")
+    ds = ds.isel(time=np.argsort(order, kind="stable"))
+    ds["valid_count"] = sum(p["valid_count"] for p in parts).astype(np.int32).assign_attrs(
+        parts[0]["valid_count"].attrs)
+    ds["endmember_spectra"] = xr.concat([p["endmember_spectra"] for p in parts],
+                                        dim=xr.DataArray(list(dict.fromkeys(sensors)), dims="sensor_id",
+                                                         name="sensor_id"))
+    ds.attrs = {**parts[0].attrs, "sensors": ", ".join(dict.fromkeys(sensors))}
     return ds
 
 
