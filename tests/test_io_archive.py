@@ -213,3 +213,51 @@ def test_record_switching_sensor_unmixed_with_each_sensors_endmembers(tmp_path):
     assert ds["endmember_spectra"].dims == ("sensor_id", "endmember", "band")
     one = unmix_cube(cube, spectra["landsat-8-oli"], names=lib.names).compute()
     assert np.abs(one["fractions"].values[0] - truth).max() > 0.01  # TM dates with OLI endmembers: biased
+
+
+def test_stac_item_collection_loads_like_the_folder(tmp_path):
+    # STAC 1.x ItemCollection written with pystac; each item's assets are the delivered files
+    import datetime
+
+    import pystac
+
+    refl = smooth_reflectance((20, 20), seed=11)
+    folders = [write_landsat_scene(tmp_path / "files", refl, date="20200815"),
+               write_landsat_scene(tmp_path / "files", refl * 0.9, date="20210815")]
+    items = []
+    for k, folder in enumerate(folders):
+        item = pystac.Item(id=f"scene-{k}", geometry=None, bbox=None,
+                           datetime=datetime.datetime(2020 + k, 8, 15), properties={})
+        for f in sorted(folder.iterdir()):
+            item.add_asset(f.name.split("_")[-1].split(".")[0].lower(), pystac.Asset(href=str(f)))
+        items.append(item)
+    path = tmp_path / "items.json"
+    pystac.ItemCollection(items).save_object(dest_href=str(path))
+    a = open_archive(path).compute()
+    b = open_archive(tmp_path / "files").compute()
+    np.testing.assert_array_equal(a.values, b.values)
+    assert a.sizes["time"] == 2
+
+
+def test_stac_item_without_the_needed_assets_is_named(tmp_path):
+    import datetime
+
+    import pystac
+
+    refl = smooth_reflectance((10, 10), seed=12)
+    folder = write_landsat_scene(tmp_path / "files", refl)
+    item = pystac.Item(id="incomplete-scene", geometry=None, bbox=None, datetime=datetime.datetime(2020, 8, 15),
+                       properties={})
+    for f in sorted(folder.iterdir()):
+        if "_SR_B5" not in f.name:  # the near-infrared band of OLI left out
+            item.add_asset(f.name, pystac.Asset(href=str(f)))
+    path = tmp_path / "item.json"
+    item.save_object(dest_href=str(path), include_self_link=False)
+    with pytest.raises(StackReadError, match=r"STAC item incomplete-scene .*SR_B5"):
+        find_scenes(path)
+    empty = pystac.Item(id="no-assets", geometry=None, bbox=None, datetime=datetime.datetime(2020, 8, 15),
+                        properties={})
+    path2 = tmp_path / "empty.json"
+    empty.save_object(dest_href=str(path2), include_self_link=False)
+    with pytest.raises(StackReadError, match="STAC item no-assets .* has no Landsat"):
+        find_scenes(path2)

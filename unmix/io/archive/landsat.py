@@ -138,16 +138,31 @@ def _read_bytes(gdal_path: str) -> bytes:
                         break
                     return fh.read()
         raise StackReadError(f"cannot read {gdal_path} from its tar file")
-    return Path(gdal_path).read_bytes()
+    if gdal_path.startswith("/vsicurl/"):  # a metadata asset of a STAC item on a web server
+        from urllib.request import urlopen
+
+        url = gdal_path[len("/vsicurl/"):]
+        try:
+            with urlopen(url, timeout=60) as response:  # noqa: S310 - http(s) assets only (see stac.py)
+                return response.read()
+        except OSError as exc:
+            raise StackReadError(f"cannot fetch {url}: {exc}") from None
+    try:
+        return Path(gdal_path).read_bytes()
+    except OSError as exc:
+        raise StackReadError(f"cannot read {gdal_path}: {exc}") from None
 
 
-def landsat_scenes(root: Path, *, bands_wanted: dict[str, list[str]] | None = None) -> list[Scene]:
+def landsat_scenes(root: Path | None = None, *, members: list[tuple[str, str]] | None = None,
+                   bands_wanted: dict[str, list[str]] | None = None) -> list[Scene]:
     """Every Landsat Collection 2 Level-2 scene below ``root`` (folders, tar files, any depth).
 
     Parameters
     ----------
     root : path
         A folder (searched at any depth) or one tar file.
+    members : list of (file name, GDAL path), optional
+        The files to look at instead of ``root`` (e.g. the assets of STAC items).
     bands_wanted : dict of sensor id to list of band names, optional
         Bands each scene must have (a missing one is an error naming the product and band);
         default: every surface-reflectance band found.
@@ -161,7 +176,7 @@ def landsat_scenes(root: Path, *, bands_wanted: dict[str, list[str]] | None = No
         A sensor without measured responses (Landsat 4 TM, MSS).
     """
     groups: dict[str, dict] = {}
-    for name, gpath in _members(Path(root)):
+    for name, gpath in (members if members is not None else _members(Path(root))):
         fields = parse_landsat_id(name)
         if fields is None:
             if re.match(r"L[CTEOM]\d\d_", name) and (_BAND_FILE.search(name) or _QA_FILE.search(name)):

@@ -26,6 +26,7 @@ from .quality import check_mask, default_mask
 from .read import DateReader
 from .scenes import Scene
 from .sentinel2 import sentinel2_scenes
+from .stac import is_stac, stac_scenes
 
 __all__ = ["find_scenes", "open_archive"]
 
@@ -36,6 +37,9 @@ _CHUNK = 1024
 def find_scenes(root: str | os.PathLike, *, roles: Sequence[str] = DEFAULT_ROLES) -> list[Scene]:
     """Every Landsat Collection 2 Level-2 and Sentinel-2 Level-2A scene below ``root``, sorted by date.
 
+    ``root`` is a folder (any depth, tar files included), one tar file, or a STAC JSON file (catalog,
+    collection, item or ItemCollection) whose items point at the delivered files.
+
     Each scene must have the bands of ``roles`` for its sensor (a missing one is an error naming the
     product and band). An empty list means ``root`` holds no such product.
     """
@@ -44,7 +48,10 @@ def find_scenes(root: str | os.PathLike, *, roles: Sequence[str] = DEFAULT_ROLES
         raise StackReadError(f"{root} does not exist; give the folder of the downloaded products")
     wanted = {s: bands_for_roles(s, roles) for s in ("landsat-5-tm", "landsat-7-etm", "landsat-8-oli",
                                                      "landsat-9-oli", "sentinel-2a-msi", "sentinel-2b-msi")}
-    scenes = landsat_scenes(root, bands_wanted=wanted) + sentinel2_scenes(root, bands_wanted=wanted)
+    if is_stac(root):
+        scenes = stac_scenes(root, bands_wanted=wanted)
+    else:
+        scenes = landsat_scenes(root, bands_wanted=wanted) + sentinel2_scenes(root, bands_wanted=wanted)
     return sorted(scenes, key=lambda s: (s.date, s.product_id))
 
 

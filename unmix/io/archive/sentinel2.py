@@ -92,7 +92,8 @@ def read_s2_metadata(path: str, data: bytes) -> dict:
     return out
 
 
-def sentinel2_scenes(root: Path, *, bands_wanted: dict[str, list[str]] | None = None) -> list[Scene]:
+def sentinel2_scenes(root: Path | None = None, *, members: list[tuple[str, str]] | None = None,
+                     bands_wanted: dict[str, list[str]] | None = None) -> list[Scene]:
     """Every Sentinel-2 Level-2A product below ``root``: SAFE folders, or band files beside MTD_MSIL2A.xml.
 
     Raises
@@ -104,7 +105,7 @@ def sentinel2_scenes(root: Path, *, bands_wanted: dict[str, list[str]] | None = 
     """
     groups: dict[tuple, dict] = {}
     metadata_by_dir: dict[str, str] = {}
-    members = _members(Path(root))
+    members = members if members is not None else _members(Path(root))
     for name, gpath in members:
         if name == "MTD_MSIL2A.xml" or name == "MTD_MSIL1C.xml":
             metadata_by_dir[str(Path(gpath).parent)] = gpath
