@@ -67,12 +67,30 @@ def test_wavelength_um_is_converted_to_nm(tmp_path):
     np.testing.assert_allclose(lib.wavelengths, [400, 500, 600, 700], rtol=1e-12)  # 1 um = 1000 nm
 
 
-def test_reflectance_scale_divides_values(tmp_path):
+def test_scale_factor_and_add_offset_multiply_and_add(tmp_path):
+    # CF conventions 8.1 (packed data): unpacked = packed x scale_factor + add_offset
     text = "wavelength_nm,soil\n400,1500\n500,2000\n600,2500\n"
-    with pytest.raises(LibraryFormatError, match="reflectance_scale"):
+    with pytest.raises(LibraryFormatError, match="scale_factor"):
         read_library(_write(tmp_path, text))  # 1500 is out of range without a scale; message says how to fix
-    lib = read_library(_write(tmp_path, text, sidecar={"reflectance_scale": 10000}))
+    lib = read_library(_write(tmp_path, text, sidecar={"scale_factor": 0.0001}))
     np.testing.assert_allclose(lib.spectra, [[0.15, 0.20, 0.25]])
+    lib = read_library(_write(tmp_path, text, "o.csv", sidecar={"scale_factor": 0.0001, "add_offset": -0.1}))
+    np.testing.assert_allclose(lib.spectra, [[0.05, 0.10, 0.15]])
+
+
+def test_old_reflectance_scale_key_is_read_with_a_deprecation_warning(tmp_path):
+    from unmix.errors import DeprecatedKeyWarning
+
+    text = "wavelength_nm,soil\n400,1500\n500,2000\n600,2500\n"
+    with pytest.warns(DeprecatedKeyWarning, match="scale_factor\": 0.0001"):
+        lib = read_library(_write(tmp_path, text, sidecar={"reflectance_scale": 10000}))
+    np.testing.assert_allclose(lib.spectra, [[0.15, 0.20, 0.25]])  # divided by it, as before
+    with pytest.raises(LibraryFormatError, match="both scale_factor and the old reflectance_scale"):
+        read_library(_write(tmp_path, text, "b.csv", sidecar={"reflectance_scale": 10000, "scale_factor": 1e-4}))
+    # what the writer writes now: the CF keys only
+    out = write_library(lib, tmp_path / "again.csv")
+    meta = json.loads(out.with_suffix(".json").read_text())
+    assert meta["scale_factor"] == 1 and meta["add_offset"] == 0 and "reflectance_scale" not in meta
 
 
 def test_non_numeric_cell_names_file_line_column(tmp_path):
@@ -123,8 +141,8 @@ def test_sidecar_errors_name_the_sidecar(tmp_path):
     _fails(p, "'grean'", "green, soil")
     p = _write(tmp_path, GOOD, "c.csv", sidecar={"units": "um"})
     _fails(p, "wavelength_nm", "agree")
-    p = _write(tmp_path, GOOD, "d.csv", sidecar={"reflectance_scale": -3})
-    _fails(p, "reflectance_scale")
+    p = _write(tmp_path, GOOD, "d.csv", sidecar={"scale_factor": -3})
+    _fails(p, "scale_factor")
 
 
 def test_missing_file_raises_library_read_error(tmp_path):

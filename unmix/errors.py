@@ -86,3 +86,7 @@ class CollinearityWarning(UnmixWarning):
 
 class ImplausibleReflectanceWarning(UnmixWarning):
     """Reflectance outside the plausible range was masked as no data (names the dates and counts)."""
+
+
+class DeprecatedKeyWarning(UnmixWarning, DeprecationWarning):
+    """A file uses a key that is still read but will be dropped (the message names the replacement)."""

@@ -24,7 +24,7 @@ def library() -> None:
 
     A library is a CSV: first column wavelength_nm (or wavelength_um), one column per spectrum,
     reflectance 0..1, with an optional JSON sidecar of the same name (class labels, source,
-    reflectance_scale). A resampled library adds a `band` column after the wavelength.
+    scale_factor, add_offset). A resampled library adds a `band` column after the wavelength.
     """
 
 

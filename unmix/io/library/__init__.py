@@ -13,7 +13,7 @@ spectrum::
 * The first column is ``wavelength_nm`` (nanometres) or ``wavelength_um`` (micrometres, converted to
   nm on reading). Wavelengths must increase strictly.
 * Every other column is one spectrum; its header is the spectrum name (unique, non-empty). Values are
-  reflectance 0..1 (see ``reflectance_scale`` below).
+  reflectance 0..1 (see ``scale_factor`` below).
 * A **resampled** library (values per sensor band) has a text column ``band`` right after the
   wavelength column; the wavelength is then the band centre [nm], rows follow the chosen band order
   (wavelengths need not increase) and band names must be unique.
@@ -21,12 +21,14 @@ spectrum::
 
 Optional JSON sidecar with the same stem (``library.csv`` -> ``library.json``)::
 
-    {"units": "nm", "reflectance_scale": 1, "source": "...", "invented": true,
+    {"units": "nm", "scale_factor": 1, "add_offset": 0, "source": "...", "invented": true,
      "description": "...", "sensor": "landsat-8-oli",
      "spectra": {"green_vegetation": {"class": "green_vegetation", "description": "..."}}}
 
-``units`` must agree with the wavelength header (``nm`` or ``um``); ``reflectance_scale`` divides every
-value on reading (10000 for integers scaled by 10 000, 100 for percent); ``sensor`` names the sensor of
+``units`` must agree with the wavelength header (``nm`` or ``um``); reflectance = stored value x
+``scale_factor`` + ``add_offset`` (the CF conventions' packing attributes: 0.0001 for integers scaled by
+10 000, 0.01 for percent); the ``reflectance_scale`` of earlier releases (a divisor) is still read, with a
+``DeprecatedKeyWarning``, for one release; ``sensor`` names the sensor of
 a resampled library; ``spectra`` gives a class label (endmember bundle) and a description per spectrum.
 Other keys are kept as metadata.
 

@@ -124,9 +124,7 @@ def read_library(path: str | os.PathLike) -> SpectralLibrary:
                 f"{path}, line {hline}, column {k}: spectrum name {n!r} repeats column {seen[n]}; names must be unique"
             )
         seen[n] = k
-    scale = meta.get("reflectance_scale", 1)
-    if isinstance(scale, bool) or not isinstance(scale, (int, float)) or not scale > 0:
-        raise LibraryFormatError(f"{sc}: reflectance_scale must be a positive number, got {scale!r}")
+    scale, add = _scaling(meta, sc)
     if len(rows) < 2:
         raise LibraryFormatError(f"{path}: no data lines after the header")
     ncol = len(header)
@@ -158,9 +156,10 @@ def read_library(path: str | os.PathLike) -> SpectralLibrary:
                 f"{lines[-1]}; wavelengths must increase strictly"
             )
         for j, n in enumerate(names):
-            v = _parse_float(path, line, n, cells[first + j]) / scale
+            v = _parse_float(path, line, n, cells[first + j]) * scale + add
             if not lo <= v <= hi:
-                hint = "" if scale != 1 else "; if the values are percent or scaled integers set reflectance_scale (100 or 10000) in the sidecar"
+                hint = "" if (scale, add) != (1, 0) else ("; if the values are percent or scaled integers set "
+                                                          "scale_factor (0.01 or 0.0001) in the sidecar")
                 raise LibraryFormatError(
                     f"{path}, line {line}, column {n}: reflectance {v:g} outside the allowed {lo:g}..{hi:g}{hint}"
                 )
@@ -186,7 +185,7 @@ def read_library(path: str | os.PathLike) -> SpectralLibrary:
             raise LibraryFormatError(f"{sc}: \"spectra\" entry for {n!r} must be an object")
         c = entry.get("class")
         classes.append(None if c in (None, "") else str(c))
-    md = {k: v for k, v in meta.items() if k not in ("units", "reflectance_scale")}
+    md = {k: v for k, v in meta.items() if k not in ("units", "reflectance_scale", "scale_factor", "add_offset")}
     md["path"] = str(path)
     return SpectralLibrary(
         wl,
@@ -196,3 +195,36 @@ def read_library(path: str | os.PathLike) -> SpectralLibrary:
         tuple(bands) if has_band else None,
         md,
     )
+
+
+def _scaling(meta: dict, sidecar: object) -> tuple[float, float]:
+    """(scale_factor, add_offset) of the sidecar: reflectance = stored value x scale_factor + add_offset.
+
+    The names and their meaning follow the CF conventions (section 8.1, packed data). The key
+    ``reflectance_scale`` of earlier releases (stored values were divided by it) is still read, with a
+    :class:`~unmix.errors.DeprecatedKeyWarning`, as ``scale_factor = 1 / reflectance_scale``.
+    """
+    import warnings
+
+    from ...errors import DeprecatedKeyWarning
+
+    def number(key: str, default: float, positive: bool) -> float:
+        value = meta.get(key, default)
+        if isinstance(value, bool) or not isinstance(value, (int, float)) or not np.isfinite(value) or (
+                positive and not value > 0):
+            kind = "a positive number" if positive else "a number"
+            raise LibraryFormatError(f"{sidecar}: {key} must be {kind}, got {value!r}")
+        return float(value)
+
+    if "reflectance_scale" in meta:
+        if "scale_factor" in meta:
+            raise LibraryFormatError(f"{sidecar}: both scale_factor and the old reflectance_scale are set; keep only "
+                                     "scale_factor (reflectance = stored value x scale_factor + add_offset)")
+        old = number("reflectance_scale", 1, True)
+        warnings.warn(DeprecatedKeyWarning(
+            f"{sidecar}: the key reflectance_scale (stored values divided by it) is deprecated and will not be read "
+            f"after this release; write \"scale_factor\": {1 / old:g} instead (stored values are multiplied by it, "
+            "as in CF)"), stacklevel=3)
+        return 1.0 / old, number("add_offset", 0, False)
+    return number("scale_factor", 1, True), number("add_offset", 0, False)
+

@@ -81,14 +81,15 @@ def write_library(library: SpectralLibrary, path: str | os.PathLike, *, overwrit
         lines.append(",".join(cells))
     csv_text = "\n".join(lines) + "\n"
 
-    md = {k: v for k, v in library.metadata.items() if k not in ("path", "spectra", "units", "reflectance_scale")}
+    md = {k: v for k, v in library.metadata.items()
+          if k not in ("path", "spectra", "units", "reflectance_scale", "scale_factor", "add_offset")}
     old_spectra = library.metadata.get("spectra", {}) or {}
     spectra = {}
     for n, c in zip(library.names, library.classes):
         entry = dict(old_spectra.get(n, {})) if isinstance(old_spectra.get(n, {}), dict) else {}
         entry.pop("class", None)
         spectra[n] = ({"class": c} if c is not None else {}) | entry
-    meta = {"units": "nm", "reflectance_scale": 1}
+    meta = {"units": "nm", "scale_factor": 1, "add_offset": 0}
     if library.resampled and "sensor" not in md:
         md["sensor"] = None
     meta.update(md)
