@@ -96,8 +96,9 @@ def make_scenario(
 
     Parameters
     ----------
-    endmember_spectra : (4, n_bands) ndarray
-        Spectra of :data:`ENDMEMBERS` in the sensor's bands, reflectance 0..1.
+    endmember_spectra : (4, n_bands) or (n_time, 4, n_bands) ndarray
+        Spectra of :data:`ENDMEMBERS` in the sensor's bands, reflectance 0..1; per date for a record
+        that switches sensor (each date mixed with its own sensor's spectra).
     size : int
         Pixels per side (30 m pixels).
     n_time : int
@@ -114,10 +115,14 @@ def make_scenario(
     Scenario
     """
     spectra = np.asarray(endmember_spectra, dtype=np.float64)
-    if spectra.shape[0] != len(ENDMEMBERS):
+    if spectra.shape[-2] != len(ENDMEMBERS) or spectra.ndim not in (2, 3):
         raise ValueError(f"endmember_spectra must hold {len(ENDMEMBERS)} spectra ({', '.join(ENDMEMBERS)})")
     rng = np.random.default_rng(seed)
     dates = _dates(n_time, first_year, rng)
+    if spectra.ndim == 2:
+        spectra = np.broadcast_to(spectra, (len(dates), *spectra.shape))
+    elif spectra.shape[0] != len(dates):
+        raise ValueError(f"per-date endmember_spectra need one set per date ({len(dates)}), got {spectra.shape[0]}")
     t = decimal_years(dates)
     t0 = t - t[0]
     season = np.sin(2 * np.pi * (t - np.floor(t)))  # southern-hemisphere wet season peaks early in the year
@@ -182,7 +187,7 @@ def make_scenario(
     sh = 1.0 - gv - dv - sd
     fractions = np.stack([gv, dv, sd, sh], axis=1)  # (time, endmember, y, x)
 
-    refl = np.einsum("tkyx,kb->tbyx", fractions, spectra)
+    refl = np.einsum("tkyx,tkb->tbyx", fractions, spectra)
     refl += rng.normal(0.0, noise_sd, size=refl.shape)
     # Clouds: a few random blobs per date hide the ground in every band.
     for i in range(nt):
