@@ -12,8 +12,8 @@ import numpy as np
 import xarray as xr
 
 from ...cube.georef import georef_of
-from ...errors import InputError, OutputExistsError
-from .atomic import atomic_path
+from ...errors import InputError
+from .claim import ProductSet
 from .provenance import _clean_attrs
 
 __all__ = ["write_cog"]
@@ -35,8 +35,13 @@ def write_cog(
     compress: str = "DEFLATE",
     resampling: str = "average",
     tags: Mapping[str, Any] | None = None,
+    products: ProductSet | None = None,
 ) -> Path:
     """Write a (time, y, x) or (y, x) array as a float32 Cloud-Optimized GeoTIFF, atomically.
+
+    The file is written under a hidden temporary name and appears complete or not at all (see
+    :func:`~unmix.io.products.atomic_path`); a full disk or unwritable folder raises
+    :class:`~unmix.errors.ProductWriteError`.
 
     One band per date, band descriptions = ISO dates (``YYYY-MM-DD``; for another leading
     dimension the coordinate values), nodata NaN, tiled, compressed, with overviews. The array is
@@ -61,6 +66,9 @@ def write_cog(
         Overview resampling (GDAL name).
     tags : mapping, optional
         Dataset tags (provenance) to store in the file.
+    products : ProductSet, optional
+        A claimed set of products this file belongs to (:mod:`unmix.io.products.claim`); it appears
+        with the rest of the set at its commit. Default: claimed and committed on its own.
 
     Returns
     -------
@@ -80,8 +88,6 @@ def write_cog(
     from rasterio.enums import Resampling
 
     path = Path(path)
-    if path.exists() and not overwrite:
-        raise OutputExistsError(f"{path} exists already; pass overwrite=True (--overwrite) to replace it")
     if da.ndim == 2:
         da = da.expand_dims("band")
     if da.ndim != 3 or da.dims[1:] != ("y", "x"):
@@ -118,37 +124,37 @@ def write_cog(
     clean_tags = {k: str(v) for k, v in _clean_attrs(dict(tags or {})).items()}
     use_cog = _cog_driver_available()
 
-    with atomic_path(path, overwrite=overwrite) as tmp:
-        stage = tmp.with_name(tmp.name + ".stage.tif") if use_cog else tmp
-        try:
-            with rasterio.open(stage, "w", **profile) as dst:
-                for i, text in enumerate(descriptions, start=1):
-                    dst.set_band_description(i, text)
-                if clean_tags:
-                    dst.update_tags(**clean_tags)
-                step = blocksize * max(1, 2048 // blocksize)
-                for row in range(0, height, step):
-                    rows = slice(row, min(height, row + step))
-                    block = np.asarray(da[:, rows, :].values, dtype="float32")
-                    dst.write(block, window=rasterio.windows.Window(0, row, width, block.shape[1]))
-                if not use_cog:
-                    factors = [f for f in (2, 4, 8, 16, 32) if min(height, width) // f >= blocksize // 2]
-                    if factors:
-                        dst.build_overviews(factors, getattr(Resampling, resampling))
-            if use_cog:
-                rasterio.shutil.copy(
-                    stage,
-                    tmp,
-                    driver="COG",
-                    BLOCKSIZE=blocksize,
-                    COMPRESS=compress,
-                    PREDICTOR="YES",
-                    OVERVIEWS="AUTO",
-                    RESAMPLING=resampling.upper(),
-                    BIGTIFF="IF_SAFER",
-                )
-        finally:
-            if use_cog:
-                with contextlib.suppress(OSError):
-                    Path(stage).unlink()
+    with contextlib.ExitStack() as stack:
+        if products is None:
+            products = stack.enter_context(ProductSet([path], overwrite=overwrite))
+        tmp = stack.enter_context(products.writing(path))
+        stage = products.scratch(path, "stage") if use_cog else tmp
+        with rasterio.open(stage, "w", **profile) as dst:
+            for i, text in enumerate(descriptions, start=1):
+                dst.set_band_description(i, text)
+            if clean_tags:
+                dst.update_tags(**clean_tags)
+            step = blocksize * max(1, 2048 // blocksize)
+            for row in range(0, height, step):
+                rows = slice(row, min(height, row + step))
+                block = np.asarray(da[:, rows, :].values, dtype="float32")
+                dst.write(block, window=rasterio.windows.Window(0, row, width, block.shape[1]))
+            if not use_cog:
+                factors = [f for f in (2, 4, 8, 16, 32) if min(height, width) // f >= blocksize // 2]
+                if factors:
+                    dst.build_overviews(factors, getattr(Resampling, resampling))
+        if use_cog:
+            rasterio.shutil.copy(
+                stage,
+                tmp,
+                driver="COG",
+                BLOCKSIZE=blocksize,
+                COMPRESS=compress,
+                PREDICTOR="YES",
+                OVERVIEWS="AUTO",
+                RESAMPLING=resampling.upper(),
+                BIGTIFF="IF_SAFER",
+            )
+            with contextlib.suppress(OSError):  # the set removes it at the end anyway; free the space now
+                Path(stage).unlink()
     return path
