@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import contextlib
 import importlib
+import logging
 import signal
 import sys
 from collections.abc import Iterator
@@ -98,6 +99,9 @@ def _one_line(exc: BaseException) -> str:
 
 def main(argv: list[str] | None = None) -> int:
     """Console-script entry point: run the group, turning UnmixError into one clear line."""
+    # GDAL messages reach Python's logging through rasterio and would print extra lines; a failure they
+    # describe is raised as an exception too, and becomes the command's one error line
+    logging.getLogger("rasterio").addHandler(logging.NullHandler())
     try:
         with _sigterm_raises():
             cli.main(args=argv, prog_name="unmix", standalone_mode=False)

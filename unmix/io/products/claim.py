@@ -155,18 +155,58 @@ def probe_folder(folder: str | os.PathLike) -> None:
         remove_stale(folder)
 
 
-def _write_error(path: Path, exc: BaseException, doing: str) -> ProductWriteError:
-    text = str(exc).strip()
-    reason = getattr(exc, "strerror", None) or (text.splitlines()[0] if text else type(exc).__name__)
+def _errno_of(exc: BaseException) -> int | None:
+    """The errno of a failed write; HDF5 puts it only into its message ("errno = 28, ...")."""
     code = getattr(exc, "errno", None)
-    hint = {errno.ENOSPC: "free some space or choose another --out", errno.EDQUOT: "free some space (quota)",
-            errno.EFBIG: "the file size limit of this process or file system was reached; choose another --out",
-            errno.EROFS: "the file system is read-only; choose another --out",
-            errno.EACCES: "choose a folder you may write to (--out)", errno.EPERM: "choose a folder you may write to",
-            errno.ENOTDIR: "a part of the path is a file, not a folder; choose another --out"}.get(
-        code, "check the folder and the free space, or choose another --out")
-    err = ProductWriteError(f"cannot {doing} {path}: {reason}; {hint}; no product of this run was kept")
-    err.errno = code
+    if code and not type(exc).__module__.startswith("rasterio"):  # GDAL's CPLE numbers are no errno
+        return int(code)
+    m = re.search(r"errno = (\d+)", str(exc))
+    return int(m.group(1)) if m else None
+
+
+def _likely_cause(folder: Path) -> int | None:
+    """When a library reports a failed write without errno: a file size limit or a full disk?"""
+    try:
+        import resource
+
+        soft = resource.getrlimit(resource.RLIMIT_FSIZE)[0]
+        if soft != resource.RLIM_INFINITY:
+            return errno.EFBIG
+    except (ImportError, OSError, ValueError):  # pragma: no cover - no resource module (Windows)
+        pass
+    try:
+        st = os.statvfs(folder)
+        if st.f_bavail * st.f_frsize < 1 << 20:
+            return errno.ENOSPC
+    except (AttributeError, OSError):  # pragma: no cover
+        pass
+    return None
+
+
+_HINTS = {
+    errno.ENOSPC: "the disk is full: free some space or choose another --out",
+    errno.EDQUOT: "the disk quota is exhausted: free some space or choose another --out",
+    errno.EFBIG: "the file size limit of this process (ulimit -f) or file system was reached; raise it or "
+                 "choose another --out",
+    errno.EROFS: "the file system is read-only; choose another --out",
+    errno.EACCES: "choose a folder you may write to (--out)",
+    errno.EPERM: "choose a folder you may write to (--out)",
+    errno.ENOTDIR: "a part of the path is a file, not a folder; choose another --out",
+}
+
+
+def _write_error(path: Path, exc: BaseException, doing: str) -> ProductWriteError:
+    code = _errno_of(exc)
+    folder = path if path.is_dir() else path.parent
+    cause = code if code in _HINTS else _likely_cause(folder)
+    if code is not None:
+        reason = os.strerror(code)
+    else:
+        text = str(exc).strip()
+        reason = text.splitlines()[0][:200] if text else type(exc).__name__
+    hint = _HINTS.get(cause, "check the folder and its free space, or choose another --out")
+    err = ProductWriteError(f"cannot {doing} {path}: {reason}; {hint}; nothing of this run was kept")
+    err.errno = cause
     return err
 
 
@@ -174,11 +214,14 @@ def is_write_failure(exc: BaseException) -> bool:
     """Does ``exc`` come from the file system (full disk, size limit, permissions, I/O)?
 
     Errors of this package (bad input, unreadable input chunks) and programming errors are not.
-    netCDF4 reports HDF5 write failures as ``RuntimeError("NetCDF: ...")``.
+    netCDF4 reports HDF5 write failures as ``RuntimeError("NetCDF: ...")``, GDAL (through rasterio)
+    as its own ``CPLE_*`` / ``Rasterio*`` errors.
     """
     if isinstance(exc, UnmixError):
         return False
     if isinstance(exc, OSError):
+        return True
+    if type(exc).__module__.startswith("rasterio"):
         return True
     return isinstance(exc, RuntimeError) and str(exc).startswith("NetCDF:")
 

@@ -4,7 +4,9 @@ from __future__ import annotations
 
 import contextlib
 import os
-from collections.abc import Mapping
+import sys
+import tempfile
+from collections.abc import Iterator, Mapping
 from pathlib import Path
 from typing import Any
 
@@ -24,6 +26,49 @@ def _cog_driver_available() -> bool:
 
     with rasterio.Env() as env:
         return "COG" in env.drivers()
+
+
+@contextlib.contextmanager
+def _c_stderr_held() -> Iterator[None]:
+    """Hold what C libraries print on file descriptor 2 while the block runs: shown afterwards if the
+    block succeeds, dropped if it fails (the failure is raised as one exception instead).
+
+    GDAL's bundled libtiff prints a failed write ("_tiffWriteProc: File too large.") straight to the
+    descriptor, bypassing Python and GDAL's error handler, and GDAL does not raise for it.
+    """
+    try:
+        sys.stderr.flush()
+        held = tempfile.TemporaryFile()
+        saved = os.dup(2)
+        os.dup2(held.fileno(), 2)
+    except (OSError, ValueError, AttributeError):  # no descriptor 2 or no room for the file: print as usual
+        yield
+        return
+    failed = True
+    try:
+        yield
+        failed = False
+    finally:
+        with contextlib.suppress(OSError, ValueError, AttributeError):
+            sys.stderr.flush()
+        os.dup2(saved, 2)
+        os.close(saved)
+        if not failed:
+            held.seek(0)
+            text = held.read()
+            if text:
+                os.write(2, text)
+        held.close()
+
+
+def _read_back(path: Path) -> None:
+    """Read every block of a just-written GeoTIFF: GDAL may only log a failed write (a full disk, a
+    file size limit) and leave a truncated file; reading it back raises instead."""
+    import rasterio
+
+    with rasterio.open(path) as src:
+        for _, window in src.block_windows(1):
+            src.read(window=window)
 
 
 def write_cog(
@@ -128,6 +173,7 @@ def write_cog(
         if products is None:
             products = stack.enter_context(ProductSet([path], overwrite=overwrite))
         tmp = stack.enter_context(products.writing(path))
+        stack.enter_context(_c_stderr_held())
         stage = products.scratch(path, "stage") if use_cog else tmp
         with rasterio.open(stage, "w", **profile) as dst:
             for i, text in enumerate(descriptions, start=1):
@@ -157,4 +203,5 @@ def write_cog(
             )
             with contextlib.suppress(OSError):  # the set removes it at the end anyway; free the space now
                 Path(stage).unlink()
+        _read_back(tmp)
     return path
