@@ -214,8 +214,9 @@ def is_write_failure(exc: BaseException) -> bool:
     """Does ``exc`` come from the file system (full disk, size limit, permissions, I/O)?
 
     Errors of this package (bad input, unreadable input chunks) and programming errors are not.
-    netCDF4 reports HDF5 write failures as ``RuntimeError("NetCDF: ...")``, GDAL (through rasterio)
-    as its own ``CPLE_*`` / ``Rasterio*`` errors.
+    netCDF4 reports HDF5 write failures as ``RuntimeError("NetCDF: ...")``, h5py some as
+    RuntimeErrors quoting HDF5's errno, GDAL (through rasterio) as its own ``CPLE_*`` / ``Rasterio*``
+    errors.
     """
     if isinstance(exc, UnmixError):
         return False
@@ -223,7 +224,8 @@ def is_write_failure(exc: BaseException) -> bool:
         return True
     if type(exc).__module__.startswith("rasterio"):
         return True
-    return isinstance(exc, RuntimeError) and str(exc).startswith("NetCDF:")
+    # netCDF4: "NetCDF: HDF error"; h5py closing a file it could not flush: "... errno = 27, ..."
+    return isinstance(exc, RuntimeError) and (str(exc).startswith("NetCDF:") or _errno_of(exc) is not None)
 
 
 class ProductSet:
