@@ -144,13 +144,13 @@ def probe_folder(folder: str | os.PathLike) -> None:
         existing = existing.parent
     if not existing.is_dir():
         raise _write_error(folder, NotADirectoryError(errno.ENOTDIR, os.strerror(errno.ENOTDIR)),
-                           f"create a folder under the file {existing} for")
+                           f"create a folder under the file {existing} for", before=True)
     probe = existing / f".unmix-probe.{_host()}.{os.getpid()}.{uuid.uuid4().hex[:8]}.partial"
     try:
         os.close(os.open(probe, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600))
         os.unlink(probe)
     except OSError as exc:
-        raise _write_error(existing, exc, "create files in") from None
+        raise _write_error(existing, exc, "create files in", before=True) from None
     if existing == folder:
         remove_stale(folder)
 
@@ -165,20 +165,19 @@ def _errno_of(exc: BaseException) -> int | None:
 
 
 def _likely_cause(folder: Path) -> int | None:
-    """When a library reports a failed write without errno: a file size limit or a full disk?"""
-    try:
-        import resource
-
-        soft = resource.getrlimit(resource.RLIMIT_FSIZE)[0]
-        if soft != resource.RLIM_INFINITY:
-            return errno.EFBIG
-    except (ImportError, OSError, ValueError):  # pragma: no cover - no resource module (Windows)
-        pass
+    """When a library reports a failed write without errno: a full disk or a file size limit?"""
     try:
         st = os.statvfs(folder)
         if st.f_bavail * st.f_frsize < 1 << 20:
             return errno.ENOSPC
-    except (AttributeError, OSError):  # pragma: no cover
+    except (AttributeError, OSError):  # pragma: no cover - no statvfs (Windows)
+        pass
+    try:
+        import resource
+
+        if resource.getrlimit(resource.RLIMIT_FSIZE)[0] != resource.RLIM_INFINITY:
+            return errno.EFBIG
+    except (ImportError, OSError, ValueError):  # pragma: no cover - no resource module (Windows)
         pass
     return None
 
@@ -195,7 +194,8 @@ _HINTS = {
 }
 
 
-def _write_error(path: Path, exc: BaseException, doing: str) -> ProductWriteError:
+def _write_error(path: Path, exc: BaseException, doing: str, before: bool = False) -> ProductWriteError:
+    """One-line error for a failed write; ``before``: the failure came before anything was written."""
     code = _errno_of(exc)
     folder = path if path.is_dir() else path.parent
     cause = code if code in _HINTS else _likely_cause(folder)
@@ -205,7 +205,8 @@ def _write_error(path: Path, exc: BaseException, doing: str) -> ProductWriteErro
         text = str(exc).strip()
         reason = text.splitlines()[0][:200] if text else type(exc).__name__
     hint = _HINTS.get(cause, "check the folder and its free space, or choose another --out")
-    err = ProductWriteError(f"cannot {doing} {path}: {reason}; {hint}; nothing of this run was kept")
+    tail = "nothing was written" if before else "nothing of this run was kept"
+    err = ProductWriteError(f"cannot {doing} {path}: {reason}; {hint}; {tail}")
     err.errno = cause
     return err
 
@@ -290,7 +291,7 @@ class ProductSet:
                 try:
                     folder.mkdir(parents=True, exist_ok=True)
                 except OSError as exc:
-                    raise _write_error(folder, exc, "create the output folder") from None
+                    raise _write_error(folder, exc, "create the output folder", before=True) from None
                 remove_stale(folder)
             for path in paths:
                 self._claim_one(path)
@@ -311,7 +312,7 @@ class ProductSet:
         except OSError as exc:
             with contextlib.suppress(OSError):
                 staged.unlink()
-            raise _write_error(path.parent, exc, "write in the output folder") from None
+            raise _write_error(path.parent, exc, "write in the output folder", before=True) from None
         try:
             _link_new(staged, claim)
         except FileExistsError:
@@ -323,7 +324,7 @@ class ProductSet:
                 "if that run is gone"
             ) from None
         except OSError as exc:
-            raise _write_error(path.parent, exc, "write in the output folder") from None
+            raise _write_error(path.parent, exc, "write in the output folder", before=True) from None
         finally:
             with contextlib.suppress(OSError):
                 staged.unlink()
