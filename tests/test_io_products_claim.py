@@ -136,3 +136,20 @@ def test_file_system_errors_become_one_product_write_error(tmp_path):
         with ProductSet([target]) as products, products.writing(target):
             1 / 0
     assert list(tmp_path.iterdir()) == []
+
+
+def test_a_running_set_keeps_its_files_fresh(tmp_path, monkeypatch):
+    monkeypatch.setattr(claim_module, "_HEARTBEAT_S", 0.02)
+    target = tmp_path / "p.nc"
+    long_ago = time.time() - STALE_AFTER_S - 60
+    with ProductSet([target]) as products, products.writing(target) as tmp:
+        tmp.write_text("partial")
+        claim = tmp_path / ".p.nc.claim"
+        for p in (claim, tmp):
+            os.utime(p, (long_ago, long_ago))
+        deadline = time.monotonic() + 20
+        while time.monotonic() < deadline and min(p.stat().st_mtime for p in (claim, tmp)) < long_ago + 1:
+            time.sleep(0.01)
+        # touched again: a run on another host would not take these files for abandoned ones
+        assert min(p.stat().st_mtime for p in (claim, tmp)) > long_ago + 1
+        assert not claim_module.remove_stale(tmp_path)
