@@ -34,6 +34,8 @@ def write_report(
     with contextlib.ExitStack() as stack:
         if products is None:
             products = stack.enter_context(ProductSet(paths, overwrite=overwrite))
+        else:
+            products.claim_more(paths)  # a table the caller did not foresee joins the set
         with products.writing(paths[0]) as tmp:
             tmp.write_text(page, encoding="utf-8")
         for path, df in zip(paths[1:], tables.values()):
