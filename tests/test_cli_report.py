@@ -41,3 +41,35 @@ def test_report_refuses_overwrite_and_non_trend_products(products, tmp_path, cap
     assert main(["report", str(products / "fractions.nc"), "--out", str(tmp_path / "r2")]) == 2
     err = capsys.readouterr().err
     assert "trajectory" in err and "Traceback" not in err
+
+
+def _changed_fractions(products, tmp_path, change):
+    """The demo's fractions product with one thing changed, written with the project's writer."""
+    from unmix.io.products import grid_mapping_attrs, open_product, write_netcdf
+
+    ds = open_product(products / "fractions.nc").load()
+    if change == "dates":
+        ds = ds.isel(time=slice(1, None))
+    elif change in ("transform", "crs"):
+        gm = ds["spatial_ref"].attrs
+        c, a, b, f, d, e = (float(v) for v in gm["GeoTransform"].split())
+        crs = "EPSG:4326" if change == "crs" else gm["crs_wkt"]
+        shift = a if change == "transform" else 0.0  # one pixel to the east
+        ds = ds.assign_coords(spatial_ref=((), 0, grid_mapping_attrs(crs, (a, b, c + shift, d, e, f))))
+        for var in ds.data_vars.values():
+            var.attrs.pop("crs_wkt", None)
+            var.attrs.pop("transform", None)
+    elif change == "shape":
+        ds = ds.isel(y=slice(0, -1))
+    return write_netcdf(ds, tmp_path / f"fractions_{change}.nc")
+
+
+@pytest.mark.parametrize("change, said", [("dates", "dates"), ("transform", "transform"), ("crs", "CRS EPSG:32734 against EPSG:4326"),
+                                          ("shape", "grid shape")])
+def test_report_refuses_products_of_another_scene(products, tmp_path, capsys, change, said):
+    other = _changed_fractions(products, tmp_path, change)
+    out = tmp_path / "rep"
+    assert main(["report", str(products / "trends.nc"), "--fractions", str(other), "--out", str(out)]) == 2
+    lines = [ln for ln in capsys.readouterr().err.splitlines() if ln.strip()]
+    assert len(lines) == 1 and "are not from the same scene" in lines[0] and said in lines[0], lines
+    assert not out.exists() or list(out.iterdir()) == []  # nothing written, no claim left

@@ -150,3 +150,26 @@ def test_bad_rules_file_exits_2(tmp_path, fractions_nc, capsys):
     code = main(["trends", str(fractions_nc), "--out", str(tmp_path / "o"), "--rules", str(tmp_path / "none.txt")])
     _one_line_error(capsys, code)
     assert not (tmp_path / "o" / "trends.nc").exists()
+
+
+def test_claimed_output_stops_the_run_until_its_holder_is_gone(tmp_path, fractions_nc, capsys):
+    import json
+    import os
+    import socket
+    import subprocess
+    import sys
+
+    out_dir = tmp_path / "out"
+    out_dir.mkdir()
+    claim = out_dir / ".trends.nc.claim"
+    # a run that is alive (our parent process, as the operating system sees it) holds the product
+    claim.write_text(json.dumps({"host": socket.gethostname(), "pid": os.getppid(), "started": "2026-01-01T00:00:00Z"}))
+    line = _one_line_error(capsys, main(["trends", str(fractions_nc), "--out", str(out_dir)]))
+    assert "being written by another run" in line and f"pid {os.getppid()}" in line and str(claim) in line
+    assert sorted(p.name for p in out_dir.iterdir()) == [".trends.nc.claim"]
+    # the holder died (a process that has exited): the next run removes its claim and writes the product
+    gone = subprocess.Popen([sys.executable, "-c", "pass"])
+    gone.wait()
+    claim.write_text(json.dumps({"host": socket.gethostname(), "pid": gone.pid, "started": "2026-01-01T00:00:00Z"}))
+    assert main(["trends", str(fractions_nc), "--out", str(out_dir)]) == 0, capsys.readouterr().err
+    assert sorted(p.name for p in out_dir.iterdir()) == ["trends.nc"]

@@ -20,6 +20,9 @@ __all__ = [
     "LibraryReadError",
     "GridMismatchError",
     "OutputExistsError",
+    "ProductClaimedError",
+    "ProductWriteError",
+    "ProductMismatchError",
     "UnmixWarning",
     "CollinearityWarning",
 ]
@@ -74,6 +77,18 @@ class GridMismatchError(InputError):
 
 class OutputExistsError(UnmixError, FileExistsError):
     """A product exists already and ``overwrite`` was not asked for."""
+
+
+class ProductClaimedError(OutputExistsError):
+    """Another run is writing the same product now (its claim file names host, pid and start time)."""
+
+
+class ProductWriteError(UnmixError, OSError):
+    """A product cannot be written: folder not writable, disk full, file size limit (product named)."""
+
+
+class ProductMismatchError(InputError):
+    """Products given together do not belong together: their grids (CRS, transform, shape) or dates differ."""
 
 
 class UnmixWarning(UserWarning):

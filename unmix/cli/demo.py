@@ -27,7 +27,9 @@ def demo(out: Path, size: int, n_time: int, seed: int, overwrite: bool) -> None:
     HTML report. Everything in the scene is made up; no place or measurement is real.
     """
     from ..demo.run import run_demo, summary_text
+    from ..io.products.claim import probe_folder
 
+    probe_folder(out)  # an unwritable --out stops here, before the scene is invented
     result = run_demo(out, size=size, n_time=n_time, seed=seed, overwrite=overwrite, echo=click.echo)
     click.echo(summary_text(result))
     echo_summary("Caution: fractions and trends are model estimates; validate them in the field and "

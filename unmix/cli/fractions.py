@@ -20,7 +20,7 @@ from ..errors import InputError
 from ..io.stack import Resampling
 from ..solvers import Constraint
 from ..spectra import on_bands
-from ._common import check_can_write, echo_summary, out_dir_option, overwrite_option, split_names
+from ._common import claim_products, echo_summary, out_dir_option, overwrite_option, split_names, writes_products
 from ._scheduler import dask_scheduler, scheduler_options
 from .sensors import RESPONSE_HELP, sensor_from_options
 
@@ -161,6 +161,7 @@ def _command_line(ctx: click.Context) -> str:
               help="Chunk edge [pixels], rounded up to whole file tiles. Default: about 1024, following the "
                    "files' tiles. Memory grows with its square.")
 @click.pass_context
+@writes_products
 def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str | None, response: Path | None,
               band_names: str | None,
               endmember_names: str | None, constraint: str, out: Path, overwrite: bool, align: bool,
@@ -177,7 +178,8 @@ def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str | None
     started = time.perf_counter()
     out = Path(out)
     nc_path = out / "fractions.nc"
-    check_can_write(nc_path, overwrite)
+    # claimed before any input is read: a busy, existing or unwritable product stops the run here
+    products = claim_products([nc_path], overwrite, command=_command_line(ctx))
 
     from ..cube.fractions import unmix_cube
     from ..io.library import read_library
@@ -201,8 +203,7 @@ def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str | None
     classes = list(dict.fromkeys(c or n for c, n in zip(lib.classes, lib.names)))
     names = ([c for c in classes if c != "shade"] + ["shade"] * ("shade" in classes)) if mesma else list(lib.names)
     cog_paths = [out / f"fractions_{n}.tif" for n in names] if cog else []
-    for p in cog_paths:
-        check_can_write(p, overwrite)
+    products.claim_more(cog_paths)
 
     qa_arg: Any = qa
     if qa is not None and qa.strip().isdigit() and not Path(qa).exists():
@@ -248,18 +249,19 @@ def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str | None
 
         write_netcdf(ds, nc_path, overwrite=overwrite, command=command, parameters=parameters,
                      input_files=input_files, title="unmix endmember fractions", complevel=compress_level,
-                     compute=compute)
+                     compute=compute, products=products)
         mode = run.describe()
 
     if cog_paths:
-        product = open_product(nc_path)
+        product = open_product(products.staged(nc_path))
         tags = provenance_attrs(command=command, parameters=parameters, input_files=input_files,
                                 endmember_names=names, title="unmix endmember fraction")
         for name, path in zip(names, cog_paths):
             da_ = product["fractions"].sel(endmember=name)
             da_.attrs.update(long_name=f"fraction of {name}")
-            write_cog(da_, path, overwrite=overwrite, tags={**tags, "endmember": name})
+            write_cog(da_, path, overwrite=overwrite, tags={**tags, "endmember": name}, products=products)
         product.close()
+    products.commit()  # fractions.nc and its COGs appear together, or none of them
 
     warn_implausible(cube["time"].values, stats.get("implausible"), vrange)
     n_t, n_y, n_x = cube.sizes["time"], cube.sizes["y"], cube.sizes["x"]

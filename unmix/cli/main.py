@@ -1,13 +1,19 @@
 """The ``unmix`` command group.
 
 Each subcommand lives in its own module and is added here. Errors raised on purpose by the library
-(:class:`unmix.errors.UnmixError`) are shown as one line on stderr with exit status 2.
+(:class:`unmix.errors.UnmixError`) are shown as one line on stderr with exit status 2. SIGTERM (what
+``kill``, batch schedulers and container runtimes send) takes the same clean-up path as Ctrl-C:
+temporary files are removed and product claims released, then the command exits with 143 (Ctrl-C: 130).
 """
 
 from __future__ import annotations
 
+import contextlib
 import importlib
+import logging
+import signal
 import sys
+from collections.abc import Iterator
 
 import click
 
@@ -59,10 +65,49 @@ def cli() -> None:
     """
 
 
+class Terminated(BaseException):
+    """Raised in the main thread when the process receives SIGTERM (a BaseException, like Ctrl-C's
+    KeyboardInterrupt, so only clean-up code catches it)."""
+
+
+@contextlib.contextmanager
+def _sigterm_raises() -> Iterator[None]:
+    """While the block runs, SIGTERM raises :class:`Terminated` (once; a second one during the
+    clean-up is ignored so the clean-up can finish). The previous handler is restored afterwards."""
+    fired = False
+
+    def handler(signum, frame):
+        nonlocal fired
+        if not fired:
+            fired = True
+            raise Terminated()
+
+    try:
+        previous = signal.signal(signal.SIGTERM, handler)
+    except ValueError:  # not the main thread (e.g. called from a worker thread): leave signals alone
+        yield
+        return
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+
+
+def _one_line(exc: BaseException) -> str:
+    return " ".join(str(exc).split())
+
+
 def main(argv: list[str] | None = None) -> int:
     """Console-script entry point: run the group, turning UnmixError into one clear line."""
+    # GDAL messages reach Python's logging through rasterio and would print extra lines; a failure they
+    # describe is raised as an exception too, and becomes the command's one error line
+    logging.getLogger("rasterio").addHandler(logging.NullHandler())
     try:
-        cli.main(args=argv, prog_name="unmix", standalone_mode=False)
+        with _sigterm_raises():
+            cli.main(args=argv, prog_name="unmix", standalone_mode=False)
+    except Terminated:
+        click.echo("unmix: stopped by SIGTERM; temporary files removed, no partial product left", err=True)
+        return 143
     except click.exceptions.Abort:
         click.echo("Aborted.", err=True)
         return 130
@@ -70,7 +115,7 @@ def main(argv: list[str] | None = None) -> int:
         exc.show()
         return exc.exit_code
     except UnmixError as exc:
-        click.echo(f"unmix: error: {exc}", err=True)
+        click.echo(f"unmix: error: {_one_line(exc)}", err=True)
         return 2
     except click.exceptions.Exit as exc:
         return exc.exit_code

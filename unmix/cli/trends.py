@@ -15,7 +15,7 @@ from ..io.products import open_product, write_netcdf
 from ..io.rules import read_rules
 from ..trajectory import Trajectory
 from ..trend import DEFAULT_CORRECTION, MannKendallCorrection
-from ._common import check_can_write, echo_summary, out_dir_option, overwrite_option
+from ._common import claim_products, echo_summary, out_dir_option, overwrite_option, writes_products
 from ._scheduler import dask_scheduler, scheduler_options
 
 __all__ = ["trends"]
@@ -45,6 +45,7 @@ __all__ = ["trends"]
                    "'desertification = green_vegetation:gradual_decrease & sand:gradual_increase'.")
 @overwrite_option
 @scheduler_options
+@writes_products
 def trends(fractions: Path, out: Path, fdr_q: float, min_slope: float, min_step: float, correction: str,
            season_scheme: str, min_valid: int, rules_file: Path | None, overwrite: bool,
            workers: int | None, scheduler: str | None) -> None:
@@ -59,7 +60,8 @@ def trends(fractions: Path, out: Path, fdr_q: float, min_slope: float, min_step:
     """
     started = _time.perf_counter()
     target = Path(out) / "trends.nc"
-    check_can_write(target, overwrite)
+    # claimed before the input is read: a busy, existing or unwritable product stops the run here
+    products = claim_products([target], overwrite)
     # whole time series per chunk straight from the file (no rechunk of single-date chunks), file's y/x chunks
     ds = open_product(fractions, chunks={"time": -1})
     if "fractions" not in ds.data_vars or "endmember" not in ds.dims:
@@ -96,10 +98,6 @@ def trends(fractions: Path, out: Path, fdr_q: float, min_slope: float, min_step:
         + (["--overwrite"] if overwrite else [])
     )
     inputs = [str(fractions)] + ([str(rules_file)] if rules_file is not None else [])
-    try:
-        Path(out).mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise InputError(f"cannot create the output folder {out} ({exc.strerror}); give another --out") from None
     with dask_scheduler(workers=workers, scheduler=scheduler) as run:
         # xarray takes a distributed lock for the NetCDF write, which needs the client to be current
         current = run.client.as_current() if run.client is not None else contextlib.nullcontext()
@@ -113,10 +111,12 @@ def trends(fractions: Path, out: Path, fdr_q: float, min_slope: float, min_step:
                 input_files=inputs,
                 title="unmix trends",
                 compute=run.compute,
+                products=products,
             )
         where = run.describe()
-    _summarise(target, ds, rules, started, where, fdr_q, correction, season_scheme)
     ds.close()
+    products.commit()
+    _summarise(target, ds, rules, started, where, fdr_q, correction, season_scheme)
 
 
 def _summarise(target: Path, ds, rules, started: float, where: str, fdr_q, correction, season_scheme) -> None:

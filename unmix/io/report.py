@@ -1,14 +1,14 @@
-"""Writing a report folder: the HTML page and its area tables as CSV, each written atomically."""
+"""Writing a report folder: the HTML page and its area tables as CSV, committed together."""
 
 from __future__ import annotations
 
+import contextlib
 import os
 from pathlib import Path
 
 import pandas as pd
 
-from ..errors import OutputExistsError
-from .products import atomic_path
+from .products.claim import ProductSet
 
 __all__ = ["report_paths", "write_report"]
 
@@ -20,20 +20,25 @@ def report_paths(out_dir: str | os.PathLike, tables: list[str]) -> list[Path]:
 
 
 def write_report(
-    page: str, tables: dict[str, pd.DataFrame], out_dir: str | os.PathLike, *, overwrite: bool = False
+    page: str, tables: dict[str, pd.DataFrame], out_dir: str | os.PathLike, *, overwrite: bool = False,
+    products: ProductSet | None = None,
 ) -> list[Path]:
-    """Write ``report.html`` and one CSV per table into ``out_dir``.
+    """Write ``report.html`` and one CSV per table into ``out_dir``, as one set of products.
 
-    Every target is checked before anything is written, so an existing report without ``overwrite``
-    leaves the folder untouched (:class:`~unmix.errors.OutputExistsError`).
+    Every file is claimed before anything is written, so an existing report without ``overwrite``
+    leaves the folder untouched (:class:`~unmix.errors.OutputExistsError`), and the page and the
+    tables appear together or not at all (see :mod:`unmix.io.products.claim`). With ``products``
+    (a set the caller claimed, holding these paths) the files join that set instead.
     """
     paths = report_paths(out_dir, list(tables))
-    existing = [str(p) for p in paths if p.exists()]
-    if existing and not overwrite:  # fail before writing anything
-        raise OutputExistsError(f"{', '.join(existing)} exist(s) already; pass --overwrite to replace")
-    with atomic_path(paths[0], overwrite=overwrite) as tmp:
-        tmp.write_text(page, encoding="utf-8")
-    for path, df in zip(paths[1:], tables.values()):
-        with atomic_path(path, overwrite=overwrite) as tmp:
-            df.to_csv(tmp, index=False, float_format="%.4f")
+    with contextlib.ExitStack() as stack:
+        if products is None:
+            products = stack.enter_context(ProductSet(paths, overwrite=overwrite))
+        else:
+            products.claim_more(paths)  # a table the caller did not foresee joins the set
+        with products.writing(paths[0]) as tmp:
+            tmp.write_text(page, encoding="utf-8")
+        for path, df in zip(paths[1:], tables.values()):
+            with products.writing(path) as tmp:
+                df.to_csv(tmp, index=False, float_format="%.4f")
     return paths

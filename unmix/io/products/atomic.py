@@ -1,24 +1,30 @@
-"""Atomic writing: a product appears under its name only when it is complete."""
+"""Atomic writing: a product appears under its name only when it is complete (see :mod:`.claim`)."""
 
 from __future__ import annotations
 
 import contextlib
 import os
-import uuid
 from collections.abc import Iterator
 from pathlib import Path
 
-from ...errors import OutputExistsError
+from .claim import ProductSet
 
 __all__ = ["atomic_path"]
 
 
 @contextlib.contextmanager
-def atomic_path(path: str | os.PathLike, *, overwrite: bool = False) -> Iterator[Path]:
-    """Yield a temporary path beside ``path``; rename it to ``path`` when the block succeeds.
+def atomic_path(path: str | os.PathLike, *, overwrite: bool = False,
+                products: ProductSet | None = None) -> Iterator[Path]:
+    """Yield a hidden temporary path beside ``path``; it becomes ``path`` when the block succeeds.
 
-    Raises :class:`~unmix.errors.OutputExistsError` at once if ``path`` exists and ``overwrite`` is
-    false. On any exception the temporary file is removed and ``path`` is left as it was.
+    Without ``products`` the path is claimed, written and committed on its own: an existing
+    ``path`` raises :class:`~unmix.errors.OutputExistsError` at once unless ``overwrite``; another
+    run writing it raises :class:`~unmix.errors.ProductClaimedError`; the file is linked into place
+    (``os.link``, so a file that appeared meanwhile is never replaced) or, with ``overwrite``,
+    renamed over the old one. With ``products`` (a claimed :class:`ProductSet`) the file joins that
+    set and is committed with it; ``overwrite`` is then the set's. On any exception the temporary
+    file is removed and ``path`` is left as it was; a file-system failure becomes one
+    :class:`~unmix.errors.ProductWriteError` naming ``path``.
 
     Examples
     --------
@@ -29,19 +35,9 @@ def atomic_path(path: str | os.PathLike, *, overwrite: bool = False) -> Iterator
     >>> target.read_text()
     'done'
     """
-    path = Path(path)
-    if path.exists() and not overwrite:
-        raise OutputExistsError(f"{path} exists already; pass overwrite=True (--overwrite) to replace it")
-    if path.exists() and path.is_dir():
-        raise OutputExistsError(f"{path} is a folder; choose a file name for the product")
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.parent / f".{path.name}.{uuid.uuid4().hex[:12]}.partial"
-    try:
+    if products is not None:
+        with products.writing(path) as tmp:
+            yield tmp
+        return
+    with ProductSet([path], overwrite=overwrite) as own, own.writing(path) as tmp:
         yield tmp
-        if not tmp.exists():
-            raise OSError(f"nothing was written to the temporary file for {path}")
-        os.replace(tmp, path)
-    except BaseException:
-        with contextlib.suppress(OSError):
-            tmp.unlink()
-        raise

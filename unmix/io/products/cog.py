@@ -4,7 +4,9 @@ from __future__ import annotations
 
 import contextlib
 import os
-from collections.abc import Mapping
+import sys
+import tempfile
+from collections.abc import Iterator, Mapping
 from pathlib import Path
 from typing import Any
 
@@ -12,8 +14,8 @@ import numpy as np
 import xarray as xr
 
 from ...cube.georef import georef_of
-from ...errors import InputError, OutputExistsError
-from .atomic import atomic_path
+from ...errors import InputError
+from .claim import ProductSet
 from .provenance import _clean_attrs
 
 __all__ = ["write_cog"]
@@ -26,6 +28,49 @@ def _cog_driver_available() -> bool:
         return "COG" in env.drivers()
 
 
+@contextlib.contextmanager
+def _c_stderr_held() -> Iterator[None]:
+    """Hold what C libraries print on file descriptor 2 while the block runs: shown afterwards if the
+    block succeeds, dropped if it fails (the failure is raised as one exception instead).
+
+    GDAL's bundled libtiff prints a failed write ("_tiffWriteProc: File too large.") straight to the
+    descriptor, bypassing Python and GDAL's error handler, and GDAL does not raise for it.
+    """
+    try:
+        sys.stderr.flush()
+        held = tempfile.TemporaryFile()
+        saved = os.dup(2)
+        os.dup2(held.fileno(), 2)
+    except (OSError, ValueError, AttributeError):  # no descriptor 2 or no room for the file: print as usual
+        yield
+        return
+    failed = True
+    try:
+        yield
+        failed = False
+    finally:
+        with contextlib.suppress(OSError, ValueError, AttributeError):
+            sys.stderr.flush()
+        os.dup2(saved, 2)
+        os.close(saved)
+        if not failed:
+            held.seek(0)
+            text = held.read()
+            if text:
+                os.write(2, text)
+        held.close()
+
+
+def _read_back(path: Path) -> None:
+    """Read every block of a just-written GeoTIFF: GDAL may only log a failed write (a full disk, a
+    file size limit) and leave a truncated file; reading it back raises instead."""
+    import rasterio
+
+    with rasterio.open(path) as src:
+        for _, window in src.block_windows(1):
+            src.read(window=window)
+
+
 def write_cog(
     da: xr.DataArray,
     path: str | os.PathLike,
@@ -35,8 +80,13 @@ def write_cog(
     compress: str = "DEFLATE",
     resampling: str = "average",
     tags: Mapping[str, Any] | None = None,
+    products: ProductSet | None = None,
 ) -> Path:
     """Write a (time, y, x) or (y, x) array as a float32 Cloud-Optimized GeoTIFF, atomically.
+
+    The file is written under a hidden temporary name and appears complete or not at all (see
+    :func:`~unmix.io.products.atomic_path`); a full disk or unwritable folder raises
+    :class:`~unmix.errors.ProductWriteError`.
 
     One band per date, band descriptions = ISO dates (``YYYY-MM-DD``; for another leading
     dimension the coordinate values), nodata NaN, tiled, compressed, with overviews. The array is
@@ -61,6 +111,9 @@ def write_cog(
         Overview resampling (GDAL name).
     tags : mapping, optional
         Dataset tags (provenance) to store in the file.
+    products : ProductSet, optional
+        A claimed set of products this file belongs to (:mod:`unmix.io.products.claim`); it appears
+        with the rest of the set at its commit. Default: claimed and committed on its own.
 
     Returns
     -------
@@ -80,8 +133,6 @@ def write_cog(
     from rasterio.enums import Resampling
 
     path = Path(path)
-    if path.exists() and not overwrite:
-        raise OutputExistsError(f"{path} exists already; pass overwrite=True (--overwrite) to replace it")
     if da.ndim == 2:
         da = da.expand_dims("band")
     if da.ndim != 3 or da.dims[1:] != ("y", "x"):
@@ -118,37 +169,39 @@ def write_cog(
     clean_tags = {k: str(v) for k, v in _clean_attrs(dict(tags or {})).items()}
     use_cog = _cog_driver_available()
 
-    with atomic_path(path, overwrite=overwrite) as tmp:
-        stage = tmp.with_name(tmp.name + ".stage.tif") if use_cog else tmp
-        try:
-            with rasterio.open(stage, "w", **profile) as dst:
-                for i, text in enumerate(descriptions, start=1):
-                    dst.set_band_description(i, text)
-                if clean_tags:
-                    dst.update_tags(**clean_tags)
-                step = blocksize * max(1, 2048 // blocksize)
-                for row in range(0, height, step):
-                    rows = slice(row, min(height, row + step))
-                    block = np.asarray(da[:, rows, :].values, dtype="float32")
-                    dst.write(block, window=rasterio.windows.Window(0, row, width, block.shape[1]))
-                if not use_cog:
-                    factors = [f for f in (2, 4, 8, 16, 32) if min(height, width) // f >= blocksize // 2]
-                    if factors:
-                        dst.build_overviews(factors, getattr(Resampling, resampling))
-            if use_cog:
-                rasterio.shutil.copy(
-                    stage,
-                    tmp,
-                    driver="COG",
-                    BLOCKSIZE=blocksize,
-                    COMPRESS=compress,
-                    PREDICTOR="YES",
-                    OVERVIEWS="AUTO",
-                    RESAMPLING=resampling.upper(),
-                    BIGTIFF="IF_SAFER",
-                )
-        finally:
-            if use_cog:
-                with contextlib.suppress(OSError):
-                    Path(stage).unlink()
+    with contextlib.ExitStack() as stack:
+        if products is None:
+            products = stack.enter_context(ProductSet([path], overwrite=overwrite))
+        tmp = stack.enter_context(products.writing(path))
+        stack.enter_context(_c_stderr_held())
+        stage = products.scratch(path, "stage") if use_cog else tmp
+        with rasterio.open(stage, "w", **profile) as dst:
+            for i, text in enumerate(descriptions, start=1):
+                dst.set_band_description(i, text)
+            if clean_tags:
+                dst.update_tags(**clean_tags)
+            step = blocksize * max(1, 2048 // blocksize)
+            for row in range(0, height, step):
+                rows = slice(row, min(height, row + step))
+                block = np.asarray(da[:, rows, :].values, dtype="float32")
+                dst.write(block, window=rasterio.windows.Window(0, row, width, block.shape[1]))
+            if not use_cog:
+                factors = [f for f in (2, 4, 8, 16, 32) if min(height, width) // f >= blocksize // 2]
+                if factors:
+                    dst.build_overviews(factors, getattr(Resampling, resampling))
+        if use_cog:
+            rasterio.shutil.copy(
+                stage,
+                tmp,
+                driver="COG",
+                BLOCKSIZE=blocksize,
+                COMPRESS=compress,
+                PREDICTOR="YES",
+                OVERVIEWS="AUTO",
+                RESAMPLING=resampling.upper(),
+                BIGTIFF="IF_SAFER",
+            )
+            with contextlib.suppress(OSError):  # the set removes it at the end anyway; free the space now
+                Path(stage).unlink()
+        _read_back(tmp)
     return path

@@ -16,13 +16,18 @@ import numpy as np
 import xarray as xr
 
 from ...cube.georef import georef_of
-from ...errors import InputError, OutputExistsError, StackReadError
+from ...errors import InputError, StackReadError
 from .._chunked_writer import define_and_plan, release
+from .._guarded_read import guarded_dataset
 from .atomic import atomic_path
+from .claim import ProductSet
 from .grid_mapping import grid_mapping_attrs, xy_attrs
 from .provenance import _clean_attrs, provenance_attrs
 
 __all__ = ["write_netcdf", "open_product"]
+
+_READ_HINT = ("the product was changed, truncated or removed after it was opened, or is damaged: write it again "
+              "with the command that made it")
 
 #: Largest NetCDF chunk along y and x [pixels].
 _MAX_SPATIAL_CHUNK = 512
@@ -101,6 +106,7 @@ def write_netcdf(
     title: str | None = None,
     complevel: int = 1,
     compute: Callable[[Any], Any] | None = None,
+    products: ProductSet | None = None,
     **compute_kwargs: Any,
 ) -> Path:
     """Write a dataset as a CF-1.8 NetCDF4 product, atomically, computing lazy data chunk by chunk.
@@ -117,7 +123,8 @@ def write_netcdf(
         Destination file (``.nc``). Its folder is created if missing.
     overwrite : bool
         Replace an existing file. Without it an existing file raises
-        :class:`~unmix.errors.OutputExistsError` before any work and is left untouched.
+        :class:`~unmix.errors.OutputExistsError` before any work and is left untouched (as does a
+        concurrent run writing the same path: :class:`~unmix.errors.ProductClaimedError`).
     command, parameters, input_files, title
         Provenance, see :func:`provenance_attrs`. Attributes already on ``ds`` are kept.
     complevel : int, default 1
@@ -129,13 +136,23 @@ def write_netcdf(
     compute : callable, optional
         Called with the delayed write to run it (e.g. ``SchedulerContext.compute`` for a cluster and
         a progress bar). Default: ``dask.compute(delayed, **compute_kwargs)``.
+    products : ProductSet, optional
+        A claimed set of products this file belongs to (:mod:`unmix.io.products.claim`): the file is
+        written under a temporary name and appears with the rest of the set at its commit. Default:
+        claimed and committed on its own.
     **compute_kwargs
         Passed to ``dask.compute`` when ``compute`` is not given (e.g. ``scheduler="threads"``).
 
     Returns
     -------
     pathlib.Path
-        The written file.
+        The written file (with ``products``: its name once the set is committed).
+
+    Raises
+    ------
+    ProductWriteError
+        The folder is not writable, the disk is full or a file size limit was reached; one line
+        naming the file, and no file (not even a temporary one) is left.
 
     Examples
     --------
@@ -149,8 +166,6 @@ def write_netcdf(
     import dask
 
     path = Path(path)
-    if path.exists() and not overwrite:
-        raise OutputExistsError(f"{path} exists already; pass overwrite=True (--overwrite) to replace it")
     if not isinstance(ds, xr.Dataset):
         raise InputError(f"write_netcdf needs an xarray.Dataset, got {type(ds).__name__}; use .to_dataset() first")
     if not 0 <= int(complevel) <= 9:
@@ -165,7 +180,7 @@ def write_netcdf(
         title=title or ds.attrs.get("title"),
     )
     prepared.attrs = {**prepared.attrs, **prov}
-    with atomic_path(path, overwrite=overwrite) as tmp:
+    with atomic_path(path, overwrite=overwrite, products=products) as tmp:
         if int(complevel) == 0:
             # uncompressed: HDF5 only copies bytes, xarray's own writer keeps up
             delayed = prepared.to_netcdf(tmp, engine="netcdf4", format="NETCDF4", encoding=encoding, compute=False)
@@ -209,7 +224,8 @@ def open_product(path: str | os.PathLike, *, chunks: Mapping[str, int] | str | N
     path : path
         A file written by :func:`write_netcdf` (or any CF NetCDF with the same layout).
     chunks : mapping or None
-        Dask chunks; default: the file's own chunks (``{}``).
+        Dask chunks per dimension (``-1`` = whole dimension); dimensions not named, and all of them
+        by default, keep the file's own chunks. ``"auto"`` lets dask choose.
 
     Returns
     -------
@@ -219,13 +235,16 @@ def open_product(path: str | os.PathLike, *, chunks: Mapping[str, int] | str | N
     Raises
     ------
     StackReadError
-        The file is missing or is not a readable NetCDF file.
+        The file is missing or is not a readable NetCDF file; or, when a lazy variable is computed
+        later, one of its chunks cannot be read (a damaged or truncated file): the message names the
+        file, the variable and the chunk.
     """
     path = Path(path)
     if not path.is_file():
         raise StackReadError(f"product {path} not found; check the path (products are written as <out>/fractions.nc)")
     try:
-        ds = xr.open_dataset(path, engine="netcdf4", chunks={} if chunks is None else chunks, decode_coords="all")
+        ds = xr.open_dataset(path, engine="netcdf4", chunks=None, decode_coords="all")
+        ds = guarded_dataset(ds, path, chunks, hint=_READ_HINT)
     except Exception as exc:  # netCDF4/HDF5 raise assorted types
         raise StackReadError(f"cannot read product {path}: {exc}; is it a NetCDF file written by unmix?") from None
     wkt, transform = georef_of(ds)

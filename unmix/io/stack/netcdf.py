@@ -9,54 +9,10 @@ import numpy as np
 import xarray as xr
 
 from ...errors import BandMismatchError, InputError, StackReadError, UnknownNameError
+from .._guarded_read import guarded_dataset as _guarded
 from ..products import grid_mapping_attrs, xy_attrs
 from .bands import _as_per_band
 from .chunks import _spatial_chunks
-
-
-class _GuardedVariable:
-    """One NetCDF variable, read lazily; a failed read raises :class:`StackReadError` naming the file.
-
-    netCDF4/HDF5 raise bare RuntimeErrors ("NetCDF: HDF error") when a file is truncated, replaced
-    or removed after it was opened; dask calls :meth:`__getitem__` once per chunk. Holds xarray's
-    lazily decoded variable (its file handle is managed, locked and pickled by xarray).
-    """
-
-    def __init__(self, variable: xr.Variable, path: Path, name: str) -> None:
-        self._variable = variable
-        self.path, self.name = str(path), name
-        self.shape, self.dtype, self.ndim = variable.shape, variable.dtype, variable.ndim
-
-    def __getitem__(self, key: tuple) -> np.ndarray:
-        try:
-            return np.asarray(self._variable[key].values)
-        except Exception as exc:
-            where = ", ".join(
-                f"{dim} {k.start or 0}-{size if k.stop is None else k.stop}" if isinstance(k, slice) else f"{dim} {k}"
-                for dim, k, size in zip(self._variable.dims, key, self.shape)
-            )
-            raise StackReadError(
-                f"reading {self.name!r} of {self.path} ({where}) failed: {exc}; the file was changed, truncated or "
-                "removed after it was opened, or is damaged: copy it again and rerun"
-            ) from None
-
-
-def _guarded(ds: xr.Dataset, path: Path) -> xr.Dataset:
-    """``ds`` with every data variable backed by dask over a :class:`_GuardedVariable`, on-disk chunks."""
-    import dask.array as da
-    from dask.base import tokenize
-
-    stamp = path.stat()
-    for name, var in ds.data_vars.items():
-        enc = var.encoding.get("chunksizes")
-        chunks = tuple(enc) if enc and len(enc) == var.ndim else var.shape
-        data = da.from_array(
-            _GuardedVariable(var.variable, path, str(name)), chunks=chunks, asarray=False, lock=False,
-            name=f"read-netcdf-{tokenize(str(path), stamp.st_mtime_ns, stamp.st_size, str(name), str(var.dtype))}",
-            meta=np.empty((0,) * var.ndim, dtype=var.dtype),
-        )
-        ds[name] = var.copy(data=data)
-    return ds
 
 
 def _open_netcdf_stack(
