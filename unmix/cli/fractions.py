@@ -18,9 +18,11 @@ import numpy as np
 
 from ..errors import InputError
 from ..io.stack import Resampling
+from ..sensors.roles import DEFAULT_ROLES, bands_for_roles
 from ..solvers import Constraint
 from ..spectra import on_bands
 from ._common import claim_products, echo_summary, out_dir_option, overwrite_option, split_names, writes_products
+from ._inputs import archive_options, expand_paths, find_archive, open_archive_input
 from ._scheduler import dask_scheduler, scheduler_options
 from .sensors import RESPONSE_HELP, sensor_from_options
 
@@ -92,7 +94,8 @@ def mesma_bundles(library: Any, M: np.ndarray) -> tuple[dict[str, np.ndarray], n
 
 def _command_line(ctx: click.Context) -> str:
     """The command as an analyst would retype it (from the parsed options, defaults left out)."""
-    parts = ["unmix", ctx.info_name or "fractions", str(ctx.params["stack"])]
+    stack = ctx.params["stack"]
+    parts = ["unmix", ctx.info_name or "fractions", *([stack] if isinstance(stack, str) else map(str, stack))]
     for param in ctx.command.params:
         if param.name == "stack":
             continue
@@ -105,7 +108,7 @@ def _command_line(ctx: click.Context) -> str:
 
 
 @click.command("fractions")
-@click.argument("stack", type=click.Path(path_type=Path))
+@click.argument("stack", nargs=-1, required=True, metavar="STACK...")
 @click.option("--library", "library", required=True, type=click.Path(path_type=Path),
               help="Spectral library CSV holding the endmember spectra (full resolution, or already resampled "
                    "to the sensor's bands).")
@@ -148,9 +151,9 @@ def _command_line(ctx: click.Context) -> str:
 @click.option("--mesma", is_flag=True, default=False,
               help="Multiple endmember unmixing: the library's class labels make bundles (a class named 'shade' "
                    "is the photometric shade); each pixel and date picks at most one member per class, the "
-                   "simplest model within --max-rmse and fractions -0.05..1.05 (Roberts et al. 1998). Also "
+                   "simplest model within --misfit-limit and fractions -0.05..1.05 (Roberts et al. 1998). Also "
                    "writes `members` (chosen member per class) and `unmodelled`. --constraint: fcls or sum-to-one.")
-@click.option("--max-rmse", "max_rmse", type=click.FloatRange(min=0, min_open=True), default=0.025,
+@click.option("--misfit-limit", "max_rmse", type=click.FloatRange(min=0, min_open=True), default=0.025,
               show_default=True, help="With --mesma: largest model RMSE accepted [reflectance].")
 @click.option("--cog", is_flag=True, default=False,
               help="Also write OUT/fractions_<endmember>.tif, Cloud-Optimized GeoTIFFs with one band per date.")
@@ -160,18 +163,25 @@ def _command_line(ctx: click.Context) -> str:
 @click.option("--chunk-size", "chunk_size", type=click.IntRange(min=16), default=None, metavar="N",
               help="Chunk edge [pixels], rounded up to whole file tiles. Default: about 1024, following the "
                    "files' tiles. Memory grows with its square.")
+@archive_options
 @click.pass_context
 @writes_products
-def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str | None, response: Path | None,
+def fractions(ctx: click.Context, stack: tuple[str, ...], library: Path, sensor: str | None, response: Path | None,
               band_names: str | None,
               endmember_names: str | None, constraint: str, out: Path, overwrite: bool, align: bool,
               resampling: str, dates: Path | None, scale: float | None, offset: float | None, qa: str | None,
               qa_bits: str | None, valid_range: str, mesma: bool, max_rmse: float, cog: bool, compress_level: int, workers: int | None,
-              scheduler: str | None, chunk_size: int | None) -> None:
+              scheduler: str | None, chunk_size: int | None, roles: str | None, grid_file: Path | None,
+              grid_crs: str | None, grid_res: float | None, grid_bounds: str | None, mask: str | None,
+              mask_share: float, band_adjustment: bool) -> None:
     """Fractions of every endmember in every pixel and date of STACK.
 
-    STACK is a folder of GeoTIFFs (one per date, all bands of that date) or a NetCDF cube
-    (time, band, y, x). Writes OUT/fractions.nc with `fractions` (time, endmember, y, x),
+    STACK is a folder of delivered Level-2 products (Landsat Collection 2 scene folders or tar
+    files, Sentinel-2 L2A SAFE folders, at any depth) or a STAC file pointing at them; or a folder
+    of GeoTIFFs (one per date, all bands of that date), GeoTIFF files or a quoted glob, or a
+    NetCDF cube (time, band, y, x). For delivered products sensor, bands, scaling and quality masks
+    come from the products, and a record that switches sensor is unmixed date by date with the
+    endmembers resampled to each date's sensor. Writes OUT/fractions.nc with `fractions` (time, endmember, y, x),
     `rmse` (time, y, x; model misfit in reflectance) and `valid_count` (dates with a valid
     fraction per pixel). Fractions are model estimates: check them against field data.
     """
@@ -186,7 +196,9 @@ def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str | None
     from ..io.products import open_product, provenance_attrs, write_cog, write_netcdf
     from ..io.stack import open_stack
 
-    sensor_obj = sensor_from_options(sensor, response)
+    paths = expand_paths(stack)
+    role_list = split_names(roles, "--roles") or list(DEFAULT_ROLES)
+    scenes = find_archive(paths, role_list)
     bands = split_names(band_names, "--band-names")
     wanted = split_names(endmember_names, "--endmembers")
     bits = _int_list(qa_bits, "--qa-bits")
@@ -205,15 +217,43 @@ def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str | None
     cog_paths = [out / f"fractions_{n}.tif" for n in names] if cog else []
     products.claim_more(cog_paths)
 
-    qa_arg: Any = qa
-    if qa is not None and qa.strip().isdigit() and not Path(qa).exists():
-        qa_arg = int(qa)
-    cube = open_stack(
-        stack, sensor=sensor_obj, band_names=bands, dates=dates, scale=scale, offset=offset, qa=qa_arg,
-        qa_bits=bits, align=align, resampling=resampling, chunks=chunk_size,
-    )
-    stack_bands = [str(b) for b in cube["band"].values]
-    M = np.asarray(on_bands(lib, sensor_obj, stack_bands, where=f"library {library}").spectra)
+    if scenes:
+        given = [flag for flag, value in (("--sensor", sensor), ("--response", response), ("--band-names", band_names),
+                                          ("--dates", dates), ("--scale", scale), ("--offset", offset), ("--qa", qa),
+                                          ("--align", align)) if value]
+        if given:
+            raise InputError(f"{', '.join(given)}: not needed for delivered products (sensor, bands, dates, scaling and "
+                             "quality come from the products); drop them, or use --roles / --mask / --grid")
+        cube = open_archive_input(scenes, roles=role_list, grid_file=grid_file, grid_crs=grid_crs, grid_res=grid_res,
+                                  grid_bounds=grid_bounds, mask=mask, mask_share=mask_share, chunk_size=chunk_size,
+                                  band_adjustment=band_adjustment)
+        stack_bands = role_list
+        sensor_ids = list(dict.fromkeys(str(v) for v in cube["sensor"].values))
+        by_sensor = {s: np.asarray(on_bands(lib, s, bands_for_roles(s, role_list), where=f"library {library}").spectra)
+                     for s in sensor_ids}
+        M: Any = by_sensor if len(sensor_ids) > 1 else by_sensor[sensor_ids[0]]
+        sensor_label = ", ".join(sensor_ids)
+    else:
+        extra = [flag for flag, value in (("--roles", roles), ("--grid", grid_file), ("--crs", grid_crs),
+                                          ("--resolution", grid_res), ("--bounds", grid_bounds), ("--mask", mask),
+                                          ("--mask-share", mask_share), ("--band-adjustment", band_adjustment)) if value]
+        if extra:
+            raise InputError(f"{', '.join(extra)}: only for delivered Level-2 products (Landsat Collection 2, "
+                             f"Sentinel-2 L2A), and none was found in {', '.join(map(str, paths))}")
+        sensor_obj = sensor_from_options(sensor, response)
+        qa_arg: Any = qa
+        if qa is not None and qa.strip().isdigit() and not Path(qa).exists():
+            qa_arg = int(qa)
+        cube = open_stack(
+            paths[0] if len(paths) == 1 else paths, sensor=sensor_obj, band_names=bands, dates=dates, scale=scale,
+            offset=offset, qa=qa_arg, qa_bits=bits, align=align, resampling=resampling, chunks=chunk_size,
+        )
+        stack_bands = [str(b) for b in cube["band"].values]
+        M = np.asarray(on_bands(lib, sensor_obj, stack_bands, where=f"library {library}").spectra)
+        sensor_label = sensor_obj.id
+    if mesma and isinstance(M, dict):
+        raise InputError(f"--mesma on a record that switches sensor ({sensor_label}) is not available; run it on "
+                         "each sensor's dates separately, or leave --mesma out")
     if mesma:
         from ..cube.mesma import mesma_cube
 
@@ -227,12 +267,16 @@ def fractions(ctx: click.Context, stack: Path, library: Path, sensor: str | None
 
     command = _command_line(ctx)
     parameters = {
-        "sensor": sensor_obj.id, "bands": stack_bands, "endmembers": names, "constraint": constraint,
+        "sensor": sensor_label, "bands": stack_bands, "endmembers": names, "constraint": constraint,
         "library": str(library), "scale": scale, "offset": offset, "qa": qa, "qa_bits": list(bits),
         "align": align, "resampling": resampling if align else None, "dates": str(dates) if dates else None,
         "chunk_size": chunk_size, "valid_range": list(vrange) if vrange else None, "mesma": mesma, "max_rmse": max_rmse if mesma else None,
         "library_spectra": list(lib.names),
     }
+    if scenes:
+        parameters.update(products=[str(v) for v in cube["product"].values], roles=role_list,
+                          masks=cube.attrs.get("masks"), mask_share=mask_share,
+                          band_adjustments=cube.attrs.get("band_adjustments") if band_adjustment else None)
     input_files = list(cube.attrs.get("input_files", ())) + [str(library)]
 
     from ..cube.summary import finite_mean

@@ -1,0 +1,128 @@
+"""``unmix fractions`` on delivered Level-2 products, several paths and globs.
+
+Fixtures follow the published layouts (tests/_archive_helpers.py); fractions are checked against the
+fractions the fixture mixed the pixels with, products are read back with netCDF4.
+"""
+
+from __future__ import annotations
+
+import netCDF4
+import numpy as np
+import pytest
+from _archive_helpers import write_landsat_scene, write_s2_product
+from conftest import BANDS
+
+from unmix.cli.main import main
+from unmix.io.library import read_shipped_library, shipped_library_path
+from unmix.io.products import open_product
+from unmix.sensors.roles import bands_for_roles
+from unmix.spectra import resample
+
+NAMES = ("green_vegetation", "bright_soil", "shade")
+
+
+def run(args, capsys):
+    code = main(["fractions", *map(str, args)])
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+@pytest.fixture
+def record(tmp_path):
+    """Unchanged cover seen by TM (2 dates), OLI (2 dates) and MSI (1 date), mixed from the shipped
+    (invented) library resampled with each sensor's measured responses."""
+    lib = read_shipped_library("demo_library").select(list(NAMES))
+    rng = np.random.default_rng(3)
+    frac = np.kron(rng.dirichlet(np.ones(3), size=(10, 10)), np.ones((2, 2, 1)))  # 20 x 20, 60 m blocks
+    root = tmp_path / "downloads"
+    for sensor, prefix, date in (("landsat-5-tm", "LT05", "19980610"), ("landsat-5-tm", "LT05", "20030612"),
+                                 ("landsat-8-oli", "LC08", "20140609"), ("landsat-8-oli", "LC08", "20190611")):
+        m = resample(lib, sensor, bands_for_roles(sensor)).spectra
+        write_landsat_scene(root / "landsat", np.moveaxis(frac @ m, -1, 0), sensor=prefix, date=date,
+                            tar=date.startswith("2003"))
+    m = resample(lib, "sentinel-2a-msi", bands_for_roles("sentinel-2a-msi")).spectra
+    write_s2_product(root / "sentinel", np.kron(np.moveaxis(frac @ m, -1, 0), np.ones((1, 3, 3))), date="20220612",
+                     driver="GTiff")
+    return root, np.moveaxis(frac, -1, 0)
+
+
+def test_delivered_record_switching_sensor_needs_only_library_and_endmembers(record, tmp_path, capsys):
+    root, truth = record
+    code, out, err = run([root, "--library", shipped_library_path("demo_library"), "--endmembers", ",".join(NAMES),
+                          "--out", tmp_path / "out"], capsys)
+    assert code == 0, err
+    assert "5 dates" in out
+    product = open_product(tmp_path / "out" / "fractions.nc")
+    assert product["sensor"].values.tolist() == ["landsat-5-tm"] * 2 + ["landsat-8-oli"] * 2 + ["sentinel-2a-msi"]
+    f = product["fractions"].values
+    for t in range(5):  # DN steps and the MSI 20 m bands bound the error
+        np.testing.assert_allclose(f[t], truth, atol=2e-3)
+    with netCDF4.Dataset(tmp_path / "out" / "fractions.nc") as nc:
+        assert "LT05_L2SP" in nc.parameters and "blue" in nc.parameters
+        assert nc.variables["sensor"].dimensions == ("time",)
+
+
+def test_delivered_products_on_a_chosen_grid(record, tmp_path, capsys):
+    root, truth = record
+    code, out, err = run([root / "sentinel", "--library", shipped_library_path("demo_library"), "--endmembers",
+                          ",".join(NAMES), "--crs", "EPSG:32612", "--resolution", "60", "--bounds",
+                          "500000,3599400,500600,3600000", "--out", tmp_path / "out"], capsys)
+    assert code == 0, err
+    f = open_product(tmp_path / "out" / "fractions.nc")["fractions"].values
+    assert f.shape == (1, 3, 10, 10)
+    np.testing.assert_allclose(f[0], truth[:, ::2, ::2], atol=2e-3)  # 60 m cells = the fixture's 60 m blocks
+
+
+@pytest.mark.parametrize("extra, pattern", [
+    (["--sensor", "landsat-8-oli"], "--sensor: not needed for delivered products"),
+    (["--crs", "EPSG:4326", "--resolution", "30", "--bounds", "10,40,11,41"], "degrees"),
+    (["--mask", "cloud,fog"], "unknown name(s) fog"),
+    (["--roles", "blue,red,ultraviolet"], "ultraviolet"),
+])
+def test_bad_options_for_delivered_products_are_one_line(record, tmp_path, capsys, extra, pattern):
+    root, _ = record
+    code, out, err = run([root, "--library", shipped_library_path("demo_library"), "--out", tmp_path / "out", *extra],
+                         capsys)
+    assert code == 2 and "Traceback" not in err
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and pattern in lines[0], err
+    assert not (tmp_path / "out" / "fractions.nc").exists()
+
+
+def test_missing_band_file_is_one_line_naming_product_and_band(record, tmp_path, capsys):
+    root, _ = record
+    next((root / "landsat").rglob("LC08_L2SP_038037_20140609_*_SR_B6.TIF")).unlink()
+    code, out, err = run([root, "--library", shipped_library_path("demo_library"), "--out", tmp_path / "out"], capsys)
+    assert code == 2 and len(err.strip().splitlines()) == 1
+    assert "LC08_L2SP_038037_20140609" in err and "SR_B6" in err
+    assert not (tmp_path / "out").exists() or not any((tmp_path / "out").iterdir())
+
+
+def test_several_paths_and_a_glob_for_a_plain_stack(make_stack, make_library, tmp_path, capsys):
+    info = make_stack()
+    common = ["--library", make_library(), "--sensor", "landsat-8-oli", "--band-names", ",".join(BANDS),
+              "--scale", "0.0001"]
+    code, out, err = run([*info.files[:3], *common, "--out", tmp_path / "list"], capsys)
+    assert code == 0, err
+    code, out, err = run([str(info.folder / "*.tif"), *common, "--out", tmp_path / "glob"], capsys)
+    assert code == 0, err
+    a = open_product(tmp_path / "list" / "fractions.nc")["fractions"].values
+    b = open_product(tmp_path / "glob" / "fractions.nc")["fractions"].values
+    assert a.shape[0] == 3 and b.shape[0] == len(info.files)
+    np.testing.assert_array_equal(a, b[:3])
+    code, out, err = run([str(info.folder / "*.jp2"), *common, "--out", tmp_path / "none"], capsys)
+    assert code == 2 and "matches no file" in err
+    code, out, err = run([info.folder, *common, "--grid", info.files[0], "--out", tmp_path / "g"], capsys)
+    assert code == 2 and "only for delivered Level-2 products" in err
+
+
+def test_band_adjustment_unmixes_msi_dates_with_oli_endmembers(record, tmp_path, capsys):
+    root, truth = record
+    code, out, err = run([root / "sentinel", "--library", shipped_library_path("demo_library"), "--endmembers",
+                          ",".join(NAMES), "--band-adjustment", "--out", tmp_path / "out"], capsys)
+    assert code == 0, err
+    with netCDF4.Dataset(tmp_path / "out" / "fractions.nc") as nc:
+        assert "doi:10.1016/j.rse.2018.09.002" in nc.parameters
+    f = open_product(tmp_path / "out" / "fractions.nc")["fractions"].values
+    assert np.isfinite(f).all() and np.abs(f.sum(axis=1) - 1).max() < 1e-5
+
