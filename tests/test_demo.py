@@ -37,6 +37,19 @@ def test_demo_recovers_fractions(demo_result):
     assert (demo_result.errors["mae"] < 0.05).all(), demo_result.errors
 
 
+def test_demo_record_switches_sensor_and_is_read_as_delivered_products(demo_result):
+    # the invented record is written as Landsat Collection 2 Level-2 scene folders (TM, then OLI) and
+    # unmixed with only the library and the endmembers; the product records each date's sensor
+    from unmix.demo.run import SENSORS
+    from unmix.io.products import open_product
+
+    folders = sorted((p.name for p in (demo_result.out / "stack").iterdir()), key=lambda n: n.split("_")[3])
+    assert folders[0].startswith("LT05_L2SP_") and folders[-1].startswith("LC08_L2SP_")  # sorted by date
+    sensors = open_product(demo_result.out / "fractions.nc")["sensor"].values.tolist()
+    assert sensors[0] == SENSORS[0] and sensors[-1] == SENSORS[1] and sensors == sorted(sensors)
+    assert "--sensor" not in demo_result.commands[0] and "--band-names" not in demo_result.commands[0]
+
+
 def test_demo_recovers_trajectories(demo_result):
     hits = demo_result.hits.set_index(["zone", "endmember"])["hit_pct"]
     assert hits.min() >= 80.0, demo_result.hits

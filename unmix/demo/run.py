@@ -1,7 +1,11 @@
-"""The full demo run: invent the scene, write it as a GeoTIFF stack, run the commands, score, report.
+"""The full demo run: invent the scene, write it as delivered Landsat products, run the commands, score, report.
 
-The demo runs the same commands an analyst runs (``unmix fractions`` then ``unmix trends``) on files it
-writes first, then compares the products with the scenario's known truth and builds the HTML report.
+The invented record switches sensor part way, as real land-degradation records do: a TM-like sensor
+first, then an OLI-like one, each date's reflectance mixed from the shipped (invented) spectra resampled
+with that sensor's measured band responses. It is written in the Landsat Collection 2 Level-2 layout
+(one folder per scene with band files, quality band and metadata), so the demo runs the same commands
+an analyst runs on downloaded products (``unmix fractions`` with only the library and the endmembers,
+then ``unmix trends``), compares the products with the scenario's known truth and builds the report.
 """
 
 from __future__ import annotations
@@ -18,17 +22,19 @@ from ..errors import OutputExistsError
 from ..io.library import read_library, shipped_library_path
 from ..io.products import open_product, write_netcdf
 from ..io.report import report_paths, write_report
-from ..io.stack_writer import write_geotiff_stack
+from ..io.archive.write import write_landsat_l2
 from ..report import build_report
-from ..sensors import get_sensor
+from ..sensors.roles import DEFAULT_ROLES, bands_for_roles
 from ..spectra import resample
 from .scenario import ENDMEMBERS, ZONES, make_scenario
 from .score import fraction_errors, trajectory_hits
 
-__all__ = ["DemoResult", "RULES", "SENSOR", "BANDS", "run_demo"]
+__all__ = ["DemoResult", "RULES", "SENSORS", "SWITCH_DATE", "run_demo", "sensor_of_dates"]
 
-SENSOR = "landsat-8-oli"
-BANDS = ("B2", "B3", "B4", "B5", "B6", "B7")
+#: The record's sensors: a TM-like sensor, then an OLI-like one (invented record, real band responses).
+SENSORS = ("landsat-5-tm", "landsat-8-oli")
+#: Dates from this day on are observed by the second sensor.
+SWITCH_DATE = np.datetime64("2012-07-01")
 RULES = """\
 # Modification rules of the invented Marrow Creek demo (see 'unmix trends --help' for the syntax).
 desertification = green_vegetation:gradual_decrease & sand:gradual_increase
@@ -48,6 +54,11 @@ class DemoResult:
     rule_areas: pd.DataFrame
     pivot_disc_ha: float
     report: Path
+
+
+def sensor_of_dates(dates: np.ndarray) -> list[str]:
+    """The sensor that observed each date of the invented record."""
+    return [SENSORS[int(np.datetime64(d, "D") >= SWITCH_DATE)] for d in dates]
 
 
 def _run(args: list[str]) -> None:
@@ -87,17 +98,23 @@ def run_demo(out: str | Path, *, size: int = 160, n_time: int = 40, seed: int = 
                                 "pass --overwrite to replace the demo products")
 
     library_path = shipped_library_path("demo_library")
-    library = resample(read_library(library_path).select(list(ENDMEMBERS)), get_sensor(SENSOR), list(BANDS))
-    scenario = make_scenario(library.spectra, size=size, n_time=n_time, seed=seed)
+    library = read_library(library_path).select(list(ENDMEMBERS))
+    spectra = {s: resample(library, s, bands_for_roles(s, DEFAULT_ROLES)).spectra for s in SENSORS}
+    probe = make_scenario(spectra[SENSORS[0]], size=8, n_time=n_time, seed=seed)  # the dates only
+    sensors = sensor_of_dates(probe.dates)
+    scenario = make_scenario(np.stack([spectra[s] for s in sensors]), size=size, n_time=n_time, seed=seed)
+    counts = {s: sensors.count(s) for s in SENSORS}
     echo(f"Invented scene 'Marrow Creek': {size} x {size} pixels of 30 m, {len(scenario.dates)} dates "
-         f"{scenario.dates[0]} .. {scenario.dates[-1]}, sensor {SENSOR} {','.join(BANDS)}")
+         f"{scenario.dates[0]} .. {scenario.dates[-1]}; " + ", then ".join(f"{n} dates of {s}" for s, n in counts.items())
+         + ", written as Landsat Collection 2 Level-2 scene folders")
 
     if overwrite and stack_dir.exists():
-        for old in stack_dir.glob("marrow_creek_*.tif"):
-            old.unlink()
-    write_geotiff_stack(scenario.reflectance, scenario.dates, stack_dir, crs=f"EPSG:{scenario.crs_epsg}",
-                        transform=scenario.transform, band_names=BANDS, prefix="marrow_creek",
-                        overwrite=overwrite)
+        import shutil
+
+        for old in stack_dir.glob("L[CT]0[58]_L2SP_*"):
+            shutil.rmtree(old)
+    write_landsat_l2(scenario.reflectance, scenario.dates, sensors, stack_dir, crs=f"EPSG:{scenario.crs_epsg}",
+                     transform=scenario.transform, overwrite=overwrite)
     _write_truth(scenario, out / "truth.nc", overwrite)
     rules_path = out / "rules.txt"
     if rules_path.exists() and not overwrite:
@@ -106,8 +123,8 @@ def run_demo(out: str | Path, *, size: int = 160, n_time: int = 40, seed: int = 
 
     flag = ["--overwrite"] if overwrite else []
     commands = [
-        ["fractions", str(stack_dir), "--library", str(library_path), "--sensor", SENSOR,
-         "--band-names", ",".join(BANDS), "--endmembers", ",".join(ENDMEMBERS), "--out", str(out), *flag],
+        ["fractions", str(stack_dir), "--library", str(library_path), "--endmembers", ",".join(ENDMEMBERS),
+         "--out", str(out), *flag],
         ["trends", str(out / "fractions.nc"), "--rules", str(rules_path), "--out", str(out), *flag],
     ]
     for args in commands:

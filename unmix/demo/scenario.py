@@ -87,7 +87,7 @@ def make_scenario(
     *,
     size: int = 160,
     n_time: int = 40,
-    first_year: int = 2015,
+    first_year: int = 2005,
     noise_sd: float = 0.004,
     cloud_share: float = 0.04,
     seed: int = 7,

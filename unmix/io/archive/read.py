@@ -111,8 +111,7 @@ def _read_on_grid(src, grid: TargetGrid, window: tuple, nodata: float) -> tuple[
     offset = _on_grid(src, grid)
     if offset is not None:
         r, c = offset
-        raw = src.read(1, window=Window(col0 + c, row0 + r, w, h), boundless=True, fill_value=nodata,
-                       out_dtype="float32")
+        raw = _read_part(src, row0 + r, col0 + c, h, w, nodata, "float32")
         return raw, raw != np.float32(nodata)
     finer = max(abs(src.transform.a), abs(src.transform.e)) < 0.99 * min(grid.resolution)
     with WarpedVRT(src, crs=CRS.from_wkt(grid.crs_wkt), transform=Affine(*grid.transform), width=grid.width,
@@ -136,8 +135,8 @@ def _masked_on_grid(src, grid: TargetGrid, window: tuple, kind: str, names: tupl
     offset = _on_grid(src, grid)
     if offset is not None:
         r, c = offset
-        qa = src.read(1, window=Window(col0 + c, row0 + r, w, h), boundless=True, fill_value=0, masked=True)
-        return masked(kind, qa.filled(0), names) | np.ma.getmaskarray(qa) | _outside(src, r + row0, c + col0, h, w)
+        qa, nodata = _read_quality(src, row0 + r, col0 + c, h, w)
+        return masked(kind, qa, names) | nodata | _outside(src, r + row0, c + col0, h, w)
     dst_t = Affine(*grid.window_transform(row0, col0))
     left, top = dst_t @ (0, 0)
     right, bottom = dst_t @ (w, h)
@@ -146,14 +145,39 @@ def _masked_on_grid(src, grid: TargetGrid, window: tuple, kind: str, names: tupl
     fb = from_bounds(*bounds, transform=src.transform)
     c0, r0 = math.floor(fb.col_off) - 1, math.floor(fb.row_off) - 1  # a pixel of margin
     win = Window(c0, r0, math.ceil(fb.col_off + fb.width) + 1 - c0, math.ceil(fb.row_off + fb.height) + 1 - r0)
-    qa = src.read(1, window=win, boundless=True, fill_value=0, masked=True)
-    bad = (masked(kind, qa.filled(0), names) | np.ma.getmaskarray(qa)).astype(np.float32)
+    qa, nodata = _read_quality(src, int(win.row_off), int(win.col_off), int(win.height), int(win.width))
+    bad = (masked(kind, qa, names) | nodata).astype(np.float32)
     # pixels outside the file count as masked (a scene covers only part of the grid)
     bad[_outside(src, int(win.row_off), int(win.col_off), bad.shape[0], bad.shape[1])] = 1.0
     cover = np.zeros((h, w), dtype=np.float32)
-    reproject(bad, cover, src_transform=src.window_transform(win), src_crs=src.crs, dst_transform=dst_t,
+    src_t = src.transform @ Affine.translation(win.col_off, win.row_off)
+    reproject(bad, cover, src_transform=src_t, src_crs=src.crs, dst_transform=dst_t,
               dst_crs=CRS.from_wkt(grid.crs_wkt), resampling=Resampling.average)
     return cover > share if share > 0 else cover > 1e-6
+
+
+def _read_part(src, row0: int, col0: int, h: int, w: int, fill: float, dtype: str) -> np.ndarray:
+    """Band 1 of ``src`` on a window that may reach outside the file; outside pixels get ``fill``.
+
+    (rasterio's ``boundless`` reads go through a VRT and are slower; this reads the inside part only.)
+    """
+    from rasterio.windows import Window
+
+    out = np.full((h, w), fill, dtype=dtype)
+    r0, c0 = max(row0, 0), max(col0, 0)
+    r1, c1 = min(row0 + h, src.height), min(col0 + w, src.width)
+    if r1 > r0 and c1 > c0:
+        out[r0 - row0:r1 - row0, c0 - col0:c1 - col0] = src.read(1, window=Window(c0, r0, c1 - c0, r1 - r0),
+                                                                 out_dtype=dtype)
+    return out
+
+
+def _read_quality(src, row0: int, col0: int, h: int, w: int) -> tuple[np.ndarray, np.ndarray]:
+    """Quality values of a window (0 outside the file) and where they are the band's own nodata."""
+    qa = _read_part(src, row0, col0, h, w, 0, "int64")
+    nodata = src.nodata
+    bad = qa == int(nodata) if nodata is not None and np.isfinite(nodata) else np.zeros(qa.shape, bool)
+    return qa, bad
 
 
 def _outside(src, row0: int, col0: int, h: int, w: int) -> np.ndarray:
