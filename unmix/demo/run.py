@@ -19,10 +19,10 @@ import pandas as pd
 import xarray as xr
 
 from ..errors import OutputExistsError
+from ..io.archive.write import write_landsat_l2
 from ..io.library import read_library, shipped_library_path
 from ..io.products import open_product, write_netcdf
 from ..io.report import report_paths, write_report
-from ..io.archive.write import write_landsat_l2
 from ..report import build_report
 from ..sensors.roles import DEFAULT_ROLES, bands_for_roles
 from ..spectra import resample
