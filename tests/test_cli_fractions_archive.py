@@ -126,3 +126,39 @@ def test_band_adjustment_unmixes_msi_dates_with_oli_endmembers(record, tmp_path,
     f = open_product(tmp_path / "out" / "fractions.nc")["fractions"].values
     assert np.isfinite(f).all() and np.abs(f.sum(axis=1) - 1).max() < 1e-5
 
+
+
+def test_no_pseudo_change_at_sensor_switches(tmp_path, capsys):
+    # No real change: the same cover seen by TM (8 dates), then OLI (8), then MSI at 10/20 m onto 30 m (6), with
+    # sensor noise (sd 0.004 reflectance). Each date is unmixed with its own sensor's endmembers, so the trend
+    # tests must find (nearly) every pixel stable and no cluster of abrupt changes at a switch (issue target:
+    # >= 98 % stable). Mixed from the shipped invented library resampled with each sensor's measured responses.
+    lib = read_shipped_library("demo_library").select(list(NAMES))
+    rng = np.random.default_rng(21)
+    frac = np.kron(rng.dirichlet(np.ones(3) * 3, size=(10, 10)), np.ones((2, 2, 1)))  # 20 x 20 px, 60 m blocks
+    root = tmp_path / "record"
+    m = {s: resample(lib, s, bands_for_roles(s)).spectra for s in ("landsat-5-tm", "landsat-8-oli", "sentinel-2a-msi")}
+    for k, year in enumerate(range(1996, 2004)):
+        refl = np.moveaxis(frac @ m["landsat-5-tm"], -1, 0) + rng.normal(0, 0.004, (6, 20, 20))
+        write_landsat_scene(root, refl, sensor="LT05", date=f"{year}0{6 + k % 3}1{k % 9}")
+    for k, year in enumerate(range(2013, 2021)):
+        refl = np.moveaxis(frac @ m["landsat-8-oli"], -1, 0) + rng.normal(0, 0.004, (6, 20, 20))
+        write_landsat_scene(root, refl, sensor="LC08", date=f"{year}0{6 + k % 3}1{k % 9}")
+    for k, year in enumerate(range(2021, 2027)):
+        refl10 = np.kron(np.moveaxis(frac @ m["sentinel-2a-msi"], -1, 0), np.ones((1, 3, 3)))
+        refl10 += rng.normal(0, 0.004 * 3, refl10.shape)  # per 10 m pixel: sd 0.004 after the 3 x 3 average
+        write_s2_product(root, refl10, date=f"{year}0{6 + k % 3}1{k % 9}", driver="GTiff")
+    lib_path = shipped_library_path("demo_library")
+    code, out, err = run([root, "--library", lib_path, "--endmembers", ",".join(NAMES), "--out", tmp_path / "out"],
+                         capsys)
+    assert code == 0, err
+    code = main(["trends", str(tmp_path / "out" / "fractions.nc"), "--out", str(tmp_path / "out")])
+    assert code == 0, capsys.readouterr().err
+    trends = open_product(tmp_path / "out" / "trends.nc")
+    labels = trends["trajectory"].values  # (endmember, y, x) codes, names in flag_meanings
+    meanings = trends["trajectory"].attrs["flag_meanings"].split()
+    stable = labels == trends["trajectory"].attrs["flag_values"][meanings.index("stable")]
+    assert stable.mean(axis=(1, 2)).min() >= 0.98, stable.mean(axis=(1, 2))
+    abrupt = np.isin(labels, [trends["trajectory"].attrs["flag_values"][meanings.index(n)]
+                              for n in ("abrupt_increase", "abrupt_decrease")])
+    assert abrupt.sum() <= 0.01 * abrupt.size
