@@ -165,7 +165,7 @@ def main(argv: list[str] | None = None) -> None:
 
 
 def _print_rows(title: str, rows: list[tuple[str, float, float]]) -> None:
-    ref_wall, ref_cpu = rows[0][1], rows[0][2]
+    ref_cpu = rows[0][2]
     print(f"{title}:")
     print(f"{'path':<8}{'wall s/date':>14}{'CPU s/date':>14}{'CPU / ' + rows[0][0]:>16}")
     for name, wall, cpu in rows:
