@@ -87,7 +87,7 @@ def make_scenario(
     *,
     size: int = 160,
     n_time: int = 40,
-    first_year: int = 2015,
+    first_year: int = 2005,
     noise_sd: float = 0.004,
     cloud_share: float = 0.04,
     seed: int = 7,
@@ -101,7 +101,10 @@ def make_scenario(
     size : int
         Pixels per side (30 m pixels).
     n_time : int
-        Number of dates, spread over ten years from ``first_year``.
+        Number of dates, spread over ten years from ``first_year`` (one a year below 20 dates).
+    first_year : int
+        Year of the first date; the default keeps even 19 yearly dates in the past, as the stack
+        reader refuses file names dated after next year.
     noise_sd : float
         Standard deviation of the Gaussian sensor noise [reflectance].
     cloud_share : float
