@@ -124,6 +124,16 @@ def test_width_of_2_to_the_31_is_refused_without_allocating(tmp_path):
     _one_line(str(err.value))
 
 
+def test_more_strips_than_the_file_has_bytes_is_refused(tmp_path):
+    path = write_tif(tmp_path / "scene_2020-05-06.tif", _data(), tiled=False, blockysize=1, compress="deflate")
+    patch_tag(path, 257, field_type=4, value=struct.pack("<I", MAX_EDGE))  # ImageLength as LONG
+    with rasterio.open(path) as src:
+        assert src.height == MAX_EDGE  # GDAL opens it: 2^20 strips indexed in a file of a few kB
+    with pytest.raises(StackReadError, match=rf"{MAX_EDGE} blocks of 1 x 36 but has only \d+ bytes") as err:
+        open_stack([path])  # before a dask graph of 2^20 rows is built
+    _one_line(str(err.value))
+
+
 def test_unknown_compression_shows_gdal_s_message(tmp_path):
     path = write_tif(tmp_path / "scene_2020-05-06.tif", _data(), tiled=True, blockxsize=16, blockysize=16,
                      compress="deflate")

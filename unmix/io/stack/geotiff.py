@@ -91,6 +91,20 @@ class _Header:
     tiles: BlockLayout | None = None  # set when the file's blocks can be read directly
 
 
+def _check_block_count(src: Any, path: Path, size: int) -> None:
+    """A TIFF stores at least one byte per tile or strip (its data, or its offset and byte count):
+    a header claiming more blocks than the file has bytes is damaged (checked before any use of it)."""
+    if src.driver != "GTiff":
+        return
+    bh, bw = src.block_shapes[0]
+    n_blocks = math.ceil(src.height / max(bh, 1)) * math.ceil(src.width / max(bw, 1))
+    if n_blocks > size:
+        raise StackReadError(
+            f"{path} claims {src.height} x {src.width} pixels in {n_blocks} blocks of {bh} x {bw} but has only "
+            f"{size} bytes, too few to hold them; the header is damaged: copy or download the file again"
+        )
+
+
 def _read_header(path: Path, check_tiles: bool = True) -> _Header:
     """The header of ``path``; :class:`StackReadError` (one line, GDAL's own reason) when it cannot be read."""
     import rasterio
@@ -104,6 +118,7 @@ def _read_header(path: Path, check_tiles: bool = True) -> _Header:
                     f"{MAX_EDGE} pixels per edge a stack file may have; the header is damaged, or cut the "
                     "raster into smaller files"
                 )
+            _check_block_count(src, path, identity.size)
             tiles = block_layout(path, fh, src) if check_tiles else None
             if check_tiles and tiles is None:
                 _check_tiles(src, path)
