@@ -237,3 +237,20 @@ def test_block_reads_without_pread_give_the_same_bytes(tmp_path, monkeypatch):
         os.close(fd)
     assert got == expected
     assert got[1] == payload[-100:]
+
+
+def test_cloud_optimized_geotiff_with_overviews_is_read_directly(tmp_path):
+    from rasterio.shutil import copy
+
+    data = _data("int16", seed=8)
+    plain = _write(tmp_path / "plain.tif", data, nodata=-9999)
+    path = tmp_path / "scene_2020-01-01.tif"
+    copy(plain, path, driver="COG", compress="deflate", predictor=2, blocksize=16, overview_resampling="nearest")
+    with rasterio.open(path) as src:
+        assert src.overviews(1)  # the COG carries reduced-resolution images after the first directory
+    head = _read_header(path)
+    assert head.tiles is not None and head.tiles.block_h == 16
+    reader = _reader(head, [1, 2, 3, 4], [1e-4] * NB, [0.0] * NB)
+    for window in WINDOWS:
+        np.testing.assert_array_equal(np.moveaxis(reader(window)[0], 0, -1),  # reference: GDAL's read
+                                      _gdal_reference(path, window, [1, 2, 3, 4], [1e-4] * NB, [0.0] * NB, -9999))
