@@ -20,6 +20,7 @@ from __future__ import annotations
 import logging
 import math
 import os
+import threading
 from dataclasses import dataclass
 from typing import Any, BinaryIO
 
@@ -74,6 +75,9 @@ class BlockLayout:
         return math.ceil(self.height / self.block_h)
 
 
+_LOG_LOCK = threading.Lock()  # one header at a time borrows tifffile's logger
+
+
 class _Capture(logging.Handler):
     def __init__(self) -> None:
         super().__init__(logging.WARNING)
@@ -95,23 +99,22 @@ def block_layout(path: Any, fh: BinaryIO, src: Any) -> BlockLayout | None:
     if src.driver != "GTiff" or len(set(src.dtypes)) != 1:
         return None
     log = logging.getLogger("tifffile")
-    capture, propagate = _Capture(), log.propagate
-    log.addHandler(capture)
-    log.propagate = False  # tifffile's complaints decide the path here; they are not the user's concern
-    try:
-        fh.seek(0)
-        with tifffile.TiffFile(fh) as tif:
-            if tif.byteorder != "<":
-                return None  # big-endian: GDAL
-            page = tif.pages.first
-            layout, offsets, counts = _plain_layout(page, src)
-    except _NotPlain:
-        return None
-    except Exception:  # noqa: BLE001 - anything tifffile cannot parse is GDAL's to read or refuse
-        return None
-    finally:
-        log.removeHandler(capture)
-        log.propagate = propagate
+    capture = _Capture()
+    with _LOG_LOCK:
+        propagate = log.propagate
+        log.addHandler(capture)
+        log.propagate = False  # tifffile's complaints decide the path here; they are not the user's concern
+        try:
+            fh.seek(0)
+            with tifffile.TiffFile(fh) as tif:
+                if tif.byteorder != "<":
+                    return None  # big-endian: GDAL
+                layout, offsets, counts = _plain_layout(tif.pages.first, src)
+        except Exception:  # noqa: BLE001 - _NotPlain, or anything tifffile cannot parse: GDAL's to read or refuse
+            return None
+        finally:
+            log.removeHandler(capture)
+            log.propagate = propagate
     if capture.messages:
         return None
     size = os.fstat(fh.fileno()).st_size
