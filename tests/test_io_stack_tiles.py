@@ -254,3 +254,28 @@ def test_cloud_optimized_geotiff_with_overviews_is_read_directly(tmp_path):
     for window in WINDOWS:
         np.testing.assert_array_equal(np.moveaxis(reader(window)[0], 0, -1),  # reference: GDAL's read
                                       _gdal_reference(path, window, [1, 2, 3, 4], [1e-4] * NB, [0.0] * NB, -9999))
+
+
+def test_a_window_reads_only_its_own_tiles_and_the_reader_pickles(tmp_path, monkeypatch):
+    import math
+    import pickle
+
+    from unmix.io.stack import _tiff_blocks
+
+    data = _data("int16", seed=3)
+    path = _write(tmp_path / "scene_2020-01-01.tif", data, tiled=True, blockxsize=16, blockysize=16,
+                  compress="deflate", predictor=2)
+    head = _read_header(path)
+    reader = pickle.loads(pickle.dumps(_reader(head, [1, 2, 3, 4], [1.0] * NB, [0.0] * NB)))  # as dask.distributed ships it
+    offsets = set(_tile_offsets(path))
+    seen = []
+    real = _tiff_blocks._pread
+    monkeypatch.setattr(_tiff_blocks, "_pread", lambda fd, count, offset: seen.append(offset) or real(fd, count, offset))
+    for row0, row1, col0, col1 in WINDOWS:
+        seen.clear()
+        got = np.moveaxis(reader((row0, row1, col0, col1))[0], 0, -1)
+        # tiles of 16 x 16 pixels overlapping the window (TIFF 6.0 section 15: tiles in row-major order)
+        expected = (math.ceil(row1 / 16) - row0 // 16) * (math.ceil(col1 / 16) - col0 // 16)
+        assert len(seen) == len(set(seen)) == expected and set(seen) <= offsets
+        np.testing.assert_array_equal(got, _gdal_reference(path, (row0, row1, col0, col1), [1, 2, 3, 4], [1.0] * NB,
+                                                           [0.0] * NB, None))
