@@ -101,8 +101,9 @@ def block_layout(path: Any, fh: BinaryIO, src: Any) -> BlockLayout | None:
     log = logging.getLogger("tifffile")
     capture = _Capture()
     with _LOG_LOCK:
-        propagate = log.propagate
+        propagate, level = log.propagate, log.level
         log.addHandler(capture)
+        log.setLevel(logging.WARNING)
         log.propagate = False  # tifffile's complaints decide the path here; they are not the user's concern
         try:
             fh.seek(0)
@@ -114,17 +115,17 @@ def block_layout(path: Any, fh: BinaryIO, src: Any) -> BlockLayout | None:
             return None
         finally:
             log.removeHandler(capture)
+            log.setLevel(level)
             log.propagate = propagate
     if capture.messages:
         return None
     size = os.fstat(fh.fileno()).st_size
-    ends = np.asarray(offsets, np.int64) + np.asarray(counts, np.int64)
-    bad = np.flatnonzero(ends > size)
-    if bad.size:
-        raise StackReadError(
-            f"{path} is truncated or damaged: {_block_name(layout, int(bad[0]))} ends at byte {int(ends[bad[0]])} "
-            f"but the file has {size} bytes; copy or download it again"
-        )
+    for k, (offset, count) in enumerate(zip(offsets, counts)):
+        if offset + count > size:
+            raise StackReadError(
+                f"{path} is truncated or damaged: {_block_name(layout, k)} ends at byte {offset + count} "
+                f"but the file has {size} bytes; copy or download it again"
+            )
     return layout
 
 
