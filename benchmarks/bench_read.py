@@ -1,15 +1,23 @@
-"""Per-date read cost of a GeoTIFF stack: the direct block reader against the GDAL path, same files.
+"""Per-date read cost of a GeoTIFF stack: the stack reader's two paths against plain rasterio reads, same files.
 
-Both paths are the reader that ``open_stack`` puts in its dask tasks (one call per date and
-window, windows as ``open_stack`` chunks the files): the direct path reads the tiles with
-``os.pread``, inflates them with libdeflate and decodes them in one compiled pass; the GDAL path
-reads the window with rasterio into a band-last buffer and decodes it. Each date is read whole,
-one window after another in this thread, so CPU seconds are the cost of reading (GDAL may use
-no extra threads here). The two results are compared bit for bit on the first date.
+Three ways of reading the same dates window by window (windows as ``open_stack`` chunks the files):
 
-Prints, per date: wall and CPU seconds of each path and their ratio (GDAL / direct), first read
-window after window in one thread, then as a dask graph (the graph ``open_stack`` builds) computed
-on the threaded scheduler with ``--threads`` threads.
+* ``plain``: the reference, rasterio/GDAL windowed reads of the stored values (one handle per date,
+  no decoding): what any GDAL-based reader pays at least;
+* ``direct``: the reader ``open_stack`` puts in its dask tasks for plain layouts: tifffile locates the
+  blocks, ``os.pread`` reads them, imagecodecs inflates them and undoes the predictor, one compiled
+  pass applies nodata, scale and offset into the band-last float32 window (identity checks included);
+* ``gdal``: the same reader sent down its GDAL path (one rasterio open per window, read into a
+  band-last buffer, the same compiled decode).
+
+Each date is read whole in this thread, so CPU seconds are the cost of reading (GDAL may use no
+extra threads here). The two reader paths are compared bit for bit on the first date. Prints wall
+and CPU seconds per date and the ratios to ``plain``, then the dask graph ``open_stack`` builds,
+computed on the threaded scheduler with ``--threads`` threads.
+
+``--compare-with TREE`` also runs ``TREE/benchmarks/bench_read.py`` (another checkout of unmix,
+for example an older commit unpacked with ``git archive``) in a separate process with
+``PYTHONPATH=TREE`` on the same stack, and prints its output after this one's.
 
 Usage::
 
@@ -60,7 +68,7 @@ def readers_for(files: list[Path], chunks: int | None) -> tuple[list, list, list
             windows.add(tuple(int(v) for v in args[2]))
     ordered = [direct[str(f)] for f in files]
     if any(r.tiles is None for r in ordered):
-        print("note: some files are not a layout the direct reader handles; they read through GDAL in both runs")
+        print("note: some files are not a layout the direct path reads; they read through GDAL in both runs")
     gdal = [dataclasses.replace(r, tiles=None) for r in ordered]
     return ordered, gdal, sorted(windows)
 
@@ -75,6 +83,23 @@ def time_reads(readers: list, windows: list[tuple], repeats: int) -> tuple[float
                 reader(window)
         best_wall = min(best_wall, (time.perf_counter() - w0) / len(readers))
         best_cpu = min(best_cpu, (time.process_time() - c0) / len(readers))
+    return best_wall, best_cpu
+
+
+def time_plain(files: list[Path], windows: list[tuple], band_indexes: tuple, repeats: int) -> tuple[float, float]:
+    """Best-of-``repeats`` wall and CPU seconds per date of rasterio windowed reads (the reference)."""
+    import rasterio
+    from rasterio.windows import Window
+
+    best_wall = best_cpu = np.inf
+    for _ in range(repeats):
+        w0, c0 = time.perf_counter(), time.process_time()
+        for path in files:
+            with rasterio.open(path) as src:
+                for row0, row1, col0, col1 in windows:
+                    src.read(list(band_indexes), window=Window(col0, row0, col1 - col0, row1 - row0))
+        best_wall = min(best_wall, (time.perf_counter() - w0) / len(files))
+        best_cpu = min(best_cpu, (time.process_time() - c0) / len(files))
     return best_wall, best_cpu
 
 
@@ -105,6 +130,8 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--threads", type=int, default=2, help="dask threads for the graph run")
     parser.add_argument("--chunks", type=int, default=None, help="window edge [pixels] (default: open_stack's)")
     parser.add_argument("--data", type=Path, default=HERE / "_data", help="where generated stacks are kept")
+    parser.add_argument("--compare-with", type=Path, default=None, metavar="TREE",
+                        help="another unmix checkout whose bench_read.py runs on the same stack afterwards")
     args = parser.parse_args(argv)
 
     files = find_or_make_stack(args.data, args.size, args.dates, args.tile)[: args.read_dates]
@@ -118,25 +145,49 @@ def main(argv: list[str] | None = None) -> None:
               f"{layout.dtype}, blocks {layout.block_h} x {layout.block_w}, "
               f"{'band' if layout.planar else 'pixel'}-interleaved, compression {layout.compression}, "
               f"predictor {layout.predictor}; {len(windows)} windows per date")
-    print(f"bit-identical on the first date: {same}")
+    print(f"direct and GDAL paths bit-identical on the first date: {same}")
+    bands = direct[0].band_indexes
     time_reads(direct[:1], windows, 1)  # compile / warm the file cache
     time_reads(gdal[:1], windows, 1)
-    gw, gc = time_reads(gdal, windows, args.repeats)
-    dw, dc = time_reads(direct, windows, args.repeats)
-    print(f"{'path':<8}{'wall s/date':>14}{'CPU s/date':>14}")
-    print(f"{'GDAL':<8}{gw:>14.3f}{gc:>14.3f}")
-    print(f"{'direct':<8}{dw:>14.3f}{dc:>14.3f}")
-    print(f"ratio GDAL / direct: wall {gw / dw:.2f}x, CPU {gc / dc:.2f}x")
+    rows = [("plain", *time_plain(files, windows, bands, args.repeats)),
+            ("direct", *time_reads(direct, windows, args.repeats)),
+            ("gdal", *time_reads(gdal, windows, args.repeats))]
+    _print_rows("one thread, window after window", rows)
     ys = sorted({(w[0], w[1]) for w in windows})
     xs = sorted({(w[2], w[3]) for w in windows})
     chunks = (tuple(b - a for a, b in ys), tuple(b - a for a, b in xs))
-    n_bands = len(direct[0].band_indexes)
-    tgw, tgc = time_graph(gdal, n_bands, chunks, args.threads, args.repeats)
-    tdw, tdc = time_graph(direct, n_bands, chunks, args.threads, args.repeats)
-    print(f"dask graph, {args.threads} threads:")
-    print(f"{'GDAL':<8}{tgw:>14.3f}{tgc:>14.3f}")
-    print(f"{'direct':<8}{tdw:>14.3f}{tdc:>14.3f}")
-    print(f"ratio GDAL / direct: wall {tgw / tdw:.2f}x, CPU {tgc / tdc:.2f}x")
+    n_bands = len(bands)
+    rows = [("direct", *time_graph(direct, n_bands, chunks, args.threads, args.repeats)),
+            ("gdal", *time_graph(gdal, n_bands, chunks, args.threads, args.repeats))]
+    _print_rows(f"dask graph, {args.threads} threads", rows)
+    if args.compare_with is not None:
+        _run_other_tree(args, argv)
+
+
+def _print_rows(title: str, rows: list[tuple[str, float, float]]) -> None:
+    ref_cpu = rows[0][2]
+    print(f"{title}:")
+    print(f"{'path':<8}{'wall s/date':>14}{'CPU s/date':>14}{'CPU / ' + rows[0][0]:>16}")
+    for name, wall, cpu in rows:
+        print(f"{name:<8}{wall:>14.3f}{cpu:>14.3f}{cpu / ref_cpu:>16.2f}")
+
+
+def _run_other_tree(args: argparse.Namespace, argv: list[str] | None) -> None:
+    """Run another checkout's bench_read.py on the same stack in its own process."""
+    import os
+    import subprocess
+
+    tree = args.compare_with.resolve()
+    forwarded = list(sys.argv[1:] if argv is None else argv)
+    if "--compare-with" in forwarded:
+        k = forwarded.index("--compare-with")
+        del forwarded[k: k + 2]
+    forwarded = [a for a in forwarded if not a.startswith("--compare-with=")]
+    if "--data" not in forwarded:
+        forwarded += ["--data", str(args.data.resolve())]
+    env = dict(os.environ, PYTHONPATH=str(tree))
+    print(f"\n--- {tree}/benchmarks/bench_read.py, same stack, separate process ---", flush=True)
+    subprocess.run([sys.executable, str(tree / "benchmarks" / "bench_read.py"), *forwarded], env=env, check=False)
 
 
 if __name__ == "__main__":

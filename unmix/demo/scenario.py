@@ -102,7 +102,10 @@ def make_scenario(
     size : int
         Pixels per side (30 m pixels).
     n_time : int
-        Number of dates, spread over ten years from ``first_year``.
+        Number of dates, spread over ten years from ``first_year`` (one a year below 20 dates).
+    first_year : int
+        Year of the first date; the default keeps even 19 yearly dates in the past, as the stack
+        reader refuses file names dated after next year.
     noise_sd : float
         Standard deviation of the Gaussian sensor noise [reflectance].
     cloud_share : float

@@ -1,11 +1,9 @@
 """Compiled decoding of stored band values to reflectance, one pass per window or per TIFF block.
 
 :func:`decode_bands` / :func:`decode_bands_last` decode arrays as GDAL returns them;
-:func:`tile_plain`, :func:`tile_horizontal` and :func:`tile_floating` decode one inflated TIFF
-block (tile or strip) straight into a band-last window, undoing the TIFF predictor on the way
-(TIFF 6.0 section 14 for horizontal differencing; Adobe Photoshop TIFF Technical Note 3 for the
-floating-point predictor). All release the GIL and use the same float32 arithmetic, so both read
-paths give the same bits.
+:func:`decode_block` decodes one TIFF block (tile or strip) as tifffile returns it (inflated, the
+predictor undone) straight into its place in a band-last window. All release the GIL and use the
+same float32 arithmetic, so both read paths give the same bits.
 """
 
 from __future__ import annotations
@@ -13,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-__all__ = ["decode_bands", "decode_bands_last", "tile_plain", "tile_horizontal", "tile_floating"]
+__all__ = ["decode_bands", "decode_bands_last", "decode_block"]
 
 
 @njit(cache=True, nogil=True)
@@ -125,9 +123,9 @@ def _put_row(vals, base, nsamp, c_lo, c_hi, sel, dest, out, o_r, o_c, s, o, noda
 
 
 @njit(cache=True, nogil=True)
-def tile_plain(vals, row_len, nsamp, r_lo, r_hi, c_lo, c_hi, sel, dest, out, o_r, o_c, s, o, nodata,
-               has_nodata):  # pragma: no cover - compiled
-    """Decode rows r_lo..r_hi, columns c_lo..c_hi of a block stored without predictor.
+def decode_block(vals, row_len, nsamp, r_lo, r_hi, c_lo, c_hi, sel, dest, out, o_r, o_c, s, o, nodata,
+                 has_nodata):  # pragma: no cover - compiled
+    """Decode rows r_lo..r_hi, columns c_lo..c_hi of one decompressed block (predictor undone).
 
     ``vals`` the block's samples (flat, ``row_len`` per row, ``nsamp`` per pixel); the sample
     ``sel[k]`` of a pixel goes to band ``dest[k]`` of ``out`` (y, x, band) float32, row ``o_r``,
@@ -135,50 +133,3 @@ def tile_plain(vals, row_len, nsamp, r_lo, r_hi, c_lo, c_hi, sel, dest, out, o_r
     """
     for r in range(r_lo, r_hi):
         _put_row(vals, r * row_len, nsamp, c_lo, c_hi, sel, dest, out, o_r + r - r_lo, o_c, s, o, nodata, has_nodata)
-
-
-@njit(cache=True, nogil=True)
-def tile_horizontal(raw, acc, vals, row_len, nsamp, r_lo, r_hi, c_lo, c_hi, sel, dest, out, o_r, o_c, s, o, nodata,
-                    has_nodata):  # pragma: no cover - compiled
-    """As :func:`tile_plain` for a block stored with horizontal differencing (TIFF predictor 2).
-
-    ``raw`` the block as unsigned integers of the sample width; ``acc`` (unsigned) and ``vals``
-    (the sample type) are views of one scratch row: each sample is the running sum, modulo the
-    sample width, of the differences to its left in the same row and the same band.
-    """
-    for r in range(r_lo, r_hi):
-        row = raw[r * row_len: (r + 1) * row_len]
-        n = c_hi * nsamp
-        for i in range(nsamp):
-            acc[i] = row[i]
-        prev, cur, diff = acc[: n - nsamp], acc[nsamp:n], row[nsamp:n]  # slices: no index wrap-around checks
-        for i in range(n - nsamp):
-            cur[i] = prev[i] + diff[i]
-        _put_row(vals, 0, nsamp, c_lo, c_hi, sel, dest, out, o_r + r - r_lo, o_c, s, o, nodata, has_nodata)
-
-
-@njit(cache=True, nogil=True)
-def tile_floating(raw, row_bytes, bits, vals, row_len, nsamp, r_lo, r_hi, c_lo, c_hi, sel, dest, out, o_r, o_c, s, o,
-                  nodata, has_nodata):  # pragma: no cover - compiled
-    """As :func:`tile_plain` for float32 blocks stored with the floating-point predictor (TIFF predictor 3).
-
-    Each row holds the bytes of its samples split into four planes, most significant byte first,
-    and differenced bytewise with a stride of ``nsamp``; ``row_bytes`` (uint8), ``bits`` (uint32)
-    and ``vals`` (float32, a view of ``bits``) are scratch rows.
-    """
-    n = row_len * 4
-    for r in range(r_lo, r_hi):
-        row = raw[r * n: (r + 1) * n]
-        for i in range(nsamp):
-            row_bytes[i] = row[i]
-        prev, cur, diff = row_bytes[: n - nsamp], row_bytes[nsamp:n], row[nsamp:n]
-        for i in range(n - nsamp):
-            cur[i] = prev[i] + diff[i]
-        for i in range(c_lo * nsamp, c_hi * nsamp):
-            bits[i] = (
-                (np.uint32(row_bytes[i]) << 24)
-                | (np.uint32(row_bytes[row_len + i]) << 16)
-                | (np.uint32(row_bytes[2 * row_len + i]) << 8)
-                | np.uint32(row_bytes[3 * row_len + i])
-            )
-        _put_row(vals, 0, nsamp, c_lo, c_hi, sel, dest, out, o_r + r - r_lo, o_c, s, o, nodata, has_nodata)

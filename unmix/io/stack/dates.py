@@ -14,15 +14,73 @@ import numpy as np
 
 from ...errors import InputError, StackReadError
 
-__all__ = ["date_from_name", "read_dates_csv"]
+__all__ = ["date_from_name", "date_problem", "read_dates_csv", "FIRST_YEAR"]
 
 _SEPARATED = re.compile(r"(?<!\d)(\d{4})[-_.](\d{2})[-_.](\d{2})(?!\d)")
 _EIGHT = re.compile(r"(?<!\d)(\d{4})(\d{2})(\d{2})(?!\d)")
 _SEVEN = re.compile(r"(?<!\d)(\d{4})(\d{3})(?!\d)")
 
 
-def _valid_year(year: int) -> bool:
-    return 1950 <= year <= 2100
+#: No land-imaging satellite flew before Landsat 1 (launched 23 July 1972): an earlier year in a file
+#: name is a misread or a placeholder, as is one after next year.
+FIRST_YEAR = 1972
+
+
+def _year_problem(year: int) -> str | None:
+    last = _dt.date.today().year + 1
+    if year < FIRST_YEAR:
+        return f"year {year} is before {FIRST_YEAR} (Landsat 1, the first land-imaging satellite)"
+    if year > last:
+        return f"year {year} is after next year ({last})"
+    return None
+
+
+def _candidates(stem: str) -> list[tuple[str, np.datetime64 | None, str | None]]:
+    """Every date-like run of a file name in order of precedence: (text, date or None, what is wrong)."""
+    out: list[tuple[str, np.datetime64 | None, str | None]] = []
+    for pattern in (_SEPARATED, _EIGHT):
+        for match in pattern.finditer(stem):
+            year, month, day = (int(g) for g in match.groups())
+            problem = _year_problem(year)
+            if problem is None and not 1 <= month <= 12:
+                problem = f"month {month}"
+            elif problem is None:
+                days = (_dt.date(year + month // 12, month % 12 + 1, 1) - _dt.date(year, month, 1)).days
+                if not 1 <= day <= days:
+                    problem = f"day {day} (month {month} of {year} has {days} days)"
+            date = np.datetime64(_dt.date(year, month, day), "D") if problem is None else None
+            out.append((match.group(0), date, problem))
+    for match in _SEVEN.finditer(stem):
+        year, doy = int(match.group(1)), int(match.group(2))
+        n_days = 366 if _is_leap(year) else 365
+        problem = _year_problem(year)
+        if problem is None and not 1 <= doy <= n_days:
+            problem = f"day of year {doy} ({year} has {n_days} days)"
+        date = None if problem else np.datetime64(_dt.date(year, 1, 1) + _dt.timedelta(days=doy - 1), "D")
+        out.append((match.group(0), date, problem))
+    return out
+
+
+def _first_problem(text: str) -> tuple[str, str] | None:
+    found = _candidates(text)
+    if any(date is not None for _, date, _ in found):
+        return None
+    return next(((run, problem) for run, _, problem in found), None)
+
+
+def date_problem(name: str | os.PathLike) -> str | None:
+    """Why a file name holds no valid date: its first impossible date and what is wrong with it.
+
+    None when the name holds a valid date (see :func:`date_from_name`) or nothing date-like.
+
+    Examples
+    --------
+    >>> date_problem("scene_2018-13-45.tif")
+    '2018-13-45 in scene_2018-13-45.tif is not a valid date: month 13'
+    """
+    stem = Path(name).name
+    found = _first_problem(stem)
+    return None if found is None else f"{found[0]} in {stem} is not a valid date: {found[1]}"
 
 
 def date_from_name(name: str | os.PathLike) -> np.datetime64 | None:
@@ -51,21 +109,9 @@ def date_from_name(name: str | os.PathLike) -> np.datetime64 | None:
     >>> date_from_name("no_date_here.tif") is None
     True
     """
-    stem = Path(name).name
-    for pattern in (_SEPARATED, _EIGHT):
-        for match in pattern.finditer(stem):
-            year, month, day = (int(g) for g in match.groups())
-            if not _valid_year(year):
-                continue
-            try:
-                return np.datetime64(_dt.date(year, month, day), "D")
-            except ValueError:
-                continue
-    for match in _SEVEN.finditer(stem):
-        year, doy = int(match.group(1)), int(match.group(2))
-        if not _valid_year(year) or not 1 <= doy <= (366 if _is_leap(year) else 365):
-            continue
-        return np.datetime64(_dt.date(year, 1, 1) + _dt.timedelta(days=doy - 1), "D")
+    for _, date, _ in _candidates(Path(name).name):
+        if date is not None:
+            return date
     return None
 
 
@@ -84,7 +130,9 @@ def _parse_date(text: Any, where: str) -> np.datetime64:
     except ValueError:
         parsed = date_from_name(value)
         if parsed is None:
-            raise InputError(f"{where}: cannot read {value!r} as a date; write dates as YYYY-MM-DD") from None
+            problem = _first_problem(value)
+            reason = f"{problem[0]} is not a valid date: {problem[1]}" if problem else f"cannot read {value!r} as a date"
+            raise InputError(f"{where}: {reason}; write dates as YYYY-MM-DD") from None
         return parsed
 
 
@@ -138,6 +186,11 @@ def _dates_for(files: Sequence[Path], dates: Any) -> list[np.datetime64]:
         out = []
         for f in files:
             d = date_from_name(f)
+            problem = date_problem(f) if d is None else None
+            if problem is not None:
+                raise InputError(
+                    f"{problem}; rename the file or give the dates as a CSV with columns file,date (--dates)"
+                )
             if d is None:
                 raise InputError(
                     f"no date in the file name {f.name!r} (looked for YYYY-MM-DD, YYYYMMDD, YYYYDDD); "

@@ -2,13 +2,16 @@
 
 A :class:`_DateReader` holds paths and numbers only (no open handles), so the dask graph pickles
 for process-based workers. Each call reads one window of one date into a band-last float32 buffer,
-either straight from the file's tiles (:mod:`._tiff_tiles`, for plain deflate/uncompressed layouts)
-or through GDAL (every other layout, warped reads and quality masks).
+either straight from the file's blocks (:mod:`._tiff_blocks`: tifffile + imagecodecs, for the plain
+layouts it lists) or through GDAL (every other layout, warped reads and quality masks). Every read
+first checks that the file is still the version recorded when the stack was opened
+(:class:`.files.FileIdentity`), on the handle it reads (direct path) or around GDAL's read.
 """
 
 from __future__ import annotations
 
 import math
+import os
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -17,7 +20,31 @@ import numpy as np
 
 from ...errors import StackReadError
 from ._numba import decode_bands, decode_bands_last
-from ._tiff_tiles import TileLayout, read_window, tile_layout
+from ._tiff_blocks import BlockLayout, block_layout, read_window
+from .files import FileIdentity
+
+#: Largest raster edge a stack file may have [pixels]: a header claiming more is taken as damaged
+#: before anything is allocated for it (a whole Landsat or Sentinel-2 scene is about 11,000 pixels).
+MAX_EDGE = 1 << 20
+
+
+def gdal_message(exc: BaseException) -> str:
+    """The messages of an exception and its causes, without rasterio's "see previous exception" stand-ins.
+
+    rasterio raises ``RasterioIOError("Read or write failed. See previous exception")`` from the
+    GDAL error (``CPLE_*Error``) that says what went wrong; this joins the informative ones, the
+    cause first.
+    """
+    chain: list[str] = []
+    seen: set[int] = set()
+    current: BaseException | None = exc
+    while current is not None and id(current) not in seen:
+        seen.add(id(current))
+        text = " ".join(str(current).split())
+        if text and "previous exception" not in text.lower() and text not in chain:
+            chain.append(text)
+        current = current.__cause__ or current.__context__
+    return "; ".join(reversed(chain)) or type(exc).__name__
 
 
 def _check_tiles(src: Any, path: Path) -> None:
@@ -60,18 +87,42 @@ class _Header:
     offsets: tuple
     descriptions: tuple
     block_shape: tuple
-    tiles: TileLayout | None = None  # set when the file's blocks can be read directly
+    identity: FileIdentity
+    tiles: BlockLayout | None = None  # set when the file's blocks can be read directly
+
+
+def _check_block_count(src: Any, path: Path, size: int) -> None:
+    """A TIFF stores at least one byte per tile or strip (its data, or its offset and byte count):
+    a header claiming more blocks than the file has bytes is damaged (checked before any use of it)."""
+    if src.driver != "GTiff":
+        return
+    bh, bw = src.block_shapes[0]
+    n_blocks = math.ceil(src.height / max(bh, 1)) * math.ceil(src.width / max(bw, 1))
+    if n_blocks > size:
+        raise StackReadError(
+            f"{path} claims {src.height} x {src.width} pixels in {n_blocks} blocks of {bh} x {bw} but has only "
+            f"{size} bytes, too few to hold them; the header is damaged: copy or download the file again"
+        )
 
 
 def _read_header(path: Path, check_tiles: bool = True) -> _Header:
+    """The header of ``path``; :class:`StackReadError` (one line, GDAL's own reason) when it cannot be read."""
     import rasterio
-    from rasterio.errors import RasterioIOError
 
     try:
-        with rasterio.open(path) as src:
-            tiles = tile_layout(path, src) if check_tiles else None
+        with open(path, "rb") as fh, rasterio.open(path) as src:
+            identity = FileIdentity.of(os.fstat(fh.fileno()))
+            if max(src.width, src.height) > MAX_EDGE:
+                raise StackReadError(
+                    f"{path} claims {src.height} x {src.width} pixels (rows x columns), more than the "
+                    f"{MAX_EDGE} pixels per edge a stack file may have; the header is damaged, or cut the "
+                    "raster into smaller files"
+                )
+            _check_block_count(src, path, identity.size)
+            tiles = block_layout(path, fh, src) if check_tiles else None
             if check_tiles and tiles is None:
                 _check_tiles(src, path)
+            identity.check(os.stat(path), path)  # GDAL opened the version recorded
             return _Header(
                 path=path,
                 crs=src.crs,
@@ -85,12 +136,15 @@ def _read_header(path: Path, check_tiles: bool = True) -> _Header:
                 offsets=tuple(src.offsets),
                 descriptions=tuple(src.descriptions),
                 block_shape=tuple(src.block_shapes[0]),
+                identity=identity,
                 tiles=tiles,
             )
     except StackReadError:
         raise
-    except (RasterioIOError, OSError, ValueError) as exc:
-        raise StackReadError(f"cannot open {path} as a raster ({exc}); the file may be truncated or not a GeoTIFF") from None
+    except Exception as exc:  # noqa: BLE001 - rasterio/GDAL raise several types for damaged files
+        raise StackReadError(
+            f"cannot open {path} as a raster ({gdal_message(exc)}); the file may be truncated or not a GeoTIFF"
+        ) from None
 
 
 def _grid_differences(head: _Header, ref: _Header) -> list[str]:
@@ -119,12 +173,14 @@ class _DateReader:
     scales: tuple
     offsets: tuple
     nodata: tuple
+    identity: FileIdentity  # the version of ``path`` recorded when the stack was opened
     qa_path: str | None = None
     qa_band: int | None = None
     qa_mask: int = 0
     qa_nodata: float | None = None
+    qa_identity: FileIdentity | None = None  # the version of ``qa_path`` (required with it)
     warp: tuple | None = None  # (crs_wkt, transform 6-tuple, width, height, resampling name)
-    tiles: TileLayout | None = None  # the file's block layout when it is read directly (never with warp)
+    tiles: BlockLayout | None = None  # the file's block layout when it is read directly (never with warp)
 
     def __call__(self, window: tuple[int, int, int, int]) -> np.ndarray:
         row0, row1, col0, col1 = window
@@ -134,14 +190,14 @@ class _DateReader:
             scales, offsets = np.asarray(self.scales, np.float64), np.asarray(self.offsets, np.float64)
             mask = None
             if self.tiles is not None and self.warp is None:
-                out = read_window(self.tiles, self.path, self.band_indexes, window, scales, offsets, nd_values,
-                                  has_nd).transpose(2, 0, 1)
+                out = read_window(self.tiles, self.path, self.identity, self.band_indexes, window, scales, offsets,
+                                  nd_values, has_nd).transpose(2, 0, 1)
             else:
                 out, mask = self._read_gdal(window, scales, offsets, nd_values, has_nd)
             if mask is not None:
                 out[:, ~mask] = np.nan
             if self.qa_path is not None:
-                qa_raw, qa_valid = self._read(self.qa_path, (self.qa_band,), window, "nearest")
+                qa_raw, qa_valid = self._read(self.qa_path, self.qa_identity, (self.qa_band,), window, "nearest")
                 qa = qa_raw[0]
                 if qa.dtype.kind == "f":
                     bad = ~np.isfinite(qa)
@@ -159,15 +215,16 @@ class _DateReader:
             raise
         except Exception as exc:  # rasterio/GDAL raise several types for damaged files
             raise StackReadError(
-                f"reading {self.path} (date {self.date}), rows {row0}-{row1}, columns {col0}-{col1} failed: {exc}; "
-                "the file may be truncated or damaged"
+                f"reading {self.path} (date {self.date}), rows {row0}-{row1}, columns {col0}-{col1} failed: "
+                f"{gdal_message(exc)}; the file may be truncated or damaged"
             ) from None
         return out[np.newaxis]
 
     def _read_gdal(self, window: tuple, scales: np.ndarray, offsets: np.ndarray, nd_values: np.ndarray,
                    has_nd: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
         """Reflectance (band, y, x) of a window read through GDAL, and the warp's validity mask (or None)."""
-        raw, mask = self._read(self.path, self.band_indexes, window, self.warp_resampling, band_last=True)
+        raw, mask = self._read(self.path, self.identity, self.band_indexes, window, self.warp_resampling,
+                               band_last=True)
         # (band, y, x) views of band-last buffers: the values of a pixel lie side by side, as the
         # per-pixel solvers read them (and as pixel-interleaved GeoTIFFs store them)
         out = np.empty(raw.shape[1:] + raw.shape[:1], dtype=np.float32).transpose(2, 0, 1)
@@ -181,9 +238,24 @@ class _DateReader:
     def warp_resampling(self) -> str:
         return self.warp[4] if self.warp is not None else "nearest"
 
-    def _read(self, path: str, indexes: tuple, window: tuple, resampling: str,
+    def _read(self, path: str, identity: FileIdentity | None, indexes: tuple, window: tuple, resampling: str,
               band_last: bool = False) -> tuple[np.ndarray, np.ndarray | None]:
-        """Stored values (band, y, x) of a window; with ``band_last`` a view of a (y, x, band) buffer."""
+        """Stored values (band, y, x) of a window; with ``band_last`` a view of a (y, x, band) buffer.
+
+        GDAL opens the file by its path: the version recorded in ``identity`` must be there before
+        the read, on a handle held across it, and under the path after it.
+        """
+        if identity is None:
+            raise StackReadError(f"{path}: no recorded version to check the read against; open the stack again")
+        with open(path, "rb") as fh:
+            identity.check(os.fstat(fh.fileno()), path)
+            result = self._read_gdal_window(path, indexes, window, resampling, band_last)
+            identity.check(os.fstat(fh.fileno()), path)
+            identity.check(os.stat(path), path)
+        return result
+
+    def _read_gdal_window(self, path: str, indexes: tuple, window: tuple, resampling: str,
+                          band_last: bool) -> tuple[np.ndarray, np.ndarray | None]:
         import rasterio
         from rasterio.windows import Window
 

@@ -209,13 +209,13 @@ def open_stack(
         )
         needs_warp = align and bool(_grid_differences(head, ref))
         if qa_files is not None:
-            qa_head = _read_header(qa_files[k], check_tiles=False)
-            qa_path, qband, qnodata = str(qa_files[k]), 1, qa_head.nodata[0]
+            qa_head = qa_headers[k]
+            qa_path, qband, qnodata, qa_identity = str(qa_files[k]), 1, qa_head.nodata[0], qa_head.identity
             needs_warp = needs_warp or (align and bool(_grid_differences(qa_head, ref)))
         elif qa_band is not None:
-            qa_path, qband, qnodata = str(head.path), qa_band, head.nodata[qa_band - 1]
+            qa_path, qband, qnodata, qa_identity = str(head.path), qa_band, head.nodata[qa_band - 1], head.identity
         else:
-            qa_path, qband, qnodata = None, None, None
+            qa_path, qband, qnodata, qa_identity = None, None, None, None
         readers.append(
             _DateReader(
                 path=str(head.path),
@@ -224,10 +224,12 @@ def open_stack(
                 scales=scales,
                 offsets=offsets,
                 nodata=tuple(head.nodata[i - 1] for i in refl_indexes),
+                identity=head.identity,
                 qa_path=qa_path,
                 qa_band=qband,
                 qa_mask=sum(1 << b for b in qa_bits),
                 qa_nodata=qnodata,
+                qa_identity=qa_identity,
                 warp=warp if needs_warp else None,
                 tiles=None if needs_warp else head.tiles,
             )
