@@ -261,3 +261,26 @@ def test_stac_item_without_the_needed_assets_is_named(tmp_path):
     empty.save_object(dest_href=str(path2), include_self_link=False)
     with pytest.raises(StackReadError, match="STAC item no-assets .* has no Landsat"):
         find_scenes(path2)
+
+
+def test_scene_off_the_grid_is_warped_like_gdal(tmp_path):
+    # two scenes of one day on different grids: the second lies half a pixel off the first one's grid and
+    # is warped onto it (not refused). Reference: rasterio.warp.reproject (GDAL) of the same file, nearest.
+    import rasterio
+    from rasterio.warp import Resampling, reproject
+
+    refl = smooth_reflectance((20, 20), seed=13)
+    write_landsat_scene(tmp_path, refl, path_row="038037")
+    other = write_landsat_scene(tmp_path, refl[:, :, ::-1].copy(), path_row="039037",
+                                origin=(500000.0 + 615.0, 3600000.0))  # 20.5 pixels to the east
+    grid = grid_from_bounds("EPSG:32612", 30.0, (500000.0, 3600000.0 - 600.0, 500000.0 + 1200.0, 3600000.0))
+    cube = open_archive(tmp_path, grid=grid).compute()
+    v = cube.values[0]
+    np.testing.assert_allclose(v[:, :, :20], refl, atol=SR_SCALE / 2 + 1e-6)  # first scene, on the grid
+    with rasterio.open(next(other.glob("*_SR_B4.TIF"))) as src:  # red
+        ref = np.zeros((20, 40), np.float32)
+        reproject(src.read(1).astype(np.float32), ref, src_transform=src.transform, src_crs=src.crs,
+                  dst_transform=rasterio.Affine(*grid.transform), dst_crs=src.crs, resampling=Resampling.nearest,
+                  src_nodata=0, dst_nodata=0)
+    right = ref[:, 21:] > 0  # columns the second scene covers fully
+    np.testing.assert_allclose(v[2, :, 21:][right], (ref[:, 21:] * SR_SCALE - 0.2)[right], atol=1e-6)

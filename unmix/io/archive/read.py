@@ -113,6 +113,17 @@ def _read_on_grid(src, grid: TargetGrid, window: tuple, nodata: float) -> tuple[
         r, c = offset
         raw = _read_part(src, row0 + r, col0 + c, h, w, nodata, "float32")
         return raw, raw != np.float32(nodata)
+    nested = _nested_grid(src, grid)
+    if nested is not None:  # finer pixels nested in the grid's (10 or 20 m onto 30 m): exact area means in numpy
+        values, rows, cols = _fine_window(src, grid, nested, window, nodata)
+        ok = values != np.float32(nodata)
+        total = _block_sum(np.where(ok, values, 0).astype(np.float64), nested, rows, cols)
+        count = _block_sum(ok.astype(np.float64), nested, rows, cols)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean = (total / count).astype(np.float32)
+        valid = count > 0
+        mean[~valid] = np.float32(nodata)
+        return mean, valid
     finer = max(abs(src.transform.a), abs(src.transform.e)) < 0.99 * min(grid.resolution)
     with WarpedVRT(src, crs=CRS.from_wkt(grid.crs_wkt), transform=Affine(*grid.transform), width=grid.width,
                    height=grid.height, resampling=Resampling.average if finer else Resampling.nearest,
@@ -137,6 +148,12 @@ def _masked_on_grid(src, grid: TargetGrid, window: tuple, kind: str, names: tupl
         r, c = offset
         qa, nodata = _read_quality(src, row0 + r, col0 + c, h, w)
         return masked(kind, qa, names) | nodata | _outside(src, r + row0, c + col0, h, w)
+    nested = _nested_grid(src, grid)
+    if nested is not None:  # share of each target pixel covered by masked quality pixels, exactly
+        qa, rows, cols = _fine_window(src, grid, nested, window, None)
+        bad = masked(kind, qa, names) | (qa == int(src.nodata) if src.nodata is not None else False) | (qa < 0)
+        cover = _block_sum(bad.astype(np.float64), nested, rows, cols) / float(nested[1] ** 2)
+        return cover > share if share > 0 else cover > 1e-6
     dst_t = Affine(*grid.window_transform(row0, col0))
     left, top = dst_t @ (0, 0)
     right, bottom = dst_t @ (w, h)
@@ -154,6 +171,58 @@ def _masked_on_grid(src, grid: TargetGrid, window: tuple, kind: str, names: tupl
     reproject(bad, cover, src_transform=src_t, src_crs=src.crs, dst_transform=dst_t,
               dst_crs=CRS.from_wkt(grid.crs_wkt), resampling=Resampling.average)
     return cover > share if share > 0 else cover > 1e-6
+
+
+def _nested_grid(src, grid: TargetGrid) -> tuple[int, int, int, int] | None:
+    """(up, down, row offset, col offset) when ``src`` pixels nest exactly in a finer common grid of the target.
+
+    Source pixel size s and target size t (same CRS, north-up) with t = down x g and s = up x g for a
+    common size g (e.g. 20 m and 30 m: g = 10, up = 2, down = 3), and the target origin on that common
+    grid (offsets in g-pixels). Then a target pixel's area average is the mean of down x down common
+    pixels, each taking the value of the source pixel it lies in. None when the grids do not nest or the
+    source is not finer.
+    """
+    from fractions import Fraction
+
+    from rasterio.crs import CRS
+
+    if src.crs is None or src.crs != CRS.from_wkt(grid.crs_wkt):
+        return None
+    a, b, c, d, e, f = tuple(src.transform)[:6]
+    ga, gb, gc, gd, ge, gf = grid.transform
+    if b or d or gb or gd or a <= 0 or e >= 0 or ga <= 0 or ge >= 0 or not math.isclose(a, -e) or \
+            not math.isclose(ga, -ge) or a >= 0.99 * ga:
+        return None
+    ratio = Fraction(ga / a).limit_denominator(8)  # t / s = down / up
+    if abs(float(ratio) - ga / a) > 1e-9 or ratio.numerator > 64:
+        return None
+    down, up = ratio.numerator, ratio.denominator
+    g = ga / down
+    col, row = (gc - c) / g, (f - gf) / g
+    if abs(col - round(col)) > 1e-6 or abs(row - round(row)) > 1e-6:
+        return None
+    return up, down, round(row), round(col)
+
+
+def _fine_window(src, grid: TargetGrid, nested: tuple, window: tuple, fill) -> tuple[np.ndarray, int, int]:
+    """Source values of a window on the common fine grid (each source pixel repeated up x up times)."""
+    up, down, orow, ocol = nested
+    row0, row1, col0, col1 = window
+    f_r0, f_c0 = orow + row0 * down, ocol + col0 * down
+    f_r1, f_c1 = orow + row1 * down, ocol + col1 * down
+    s_r0, s_c0 = f_r0 // up, f_c0 // up
+    s_r1, s_c1 = -(-f_r1 // up), -(-f_c1 // up)
+    dtype = "float32" if fill is not None else "int64"
+    part = _read_part(src, s_r0, s_c0, s_r1 - s_r0, s_c1 - s_c0, fill if fill is not None else -1, dtype)
+    if up > 1:
+        part = np.repeat(np.repeat(part, up, axis=0), up, axis=1)
+    r, c = f_r0 - s_r0 * up, f_c0 - s_c0 * up
+    return part[r:r + (row1 - row0) * down, c:c + (col1 - col0) * down], row1 - row0, col1 - col0
+
+
+def _block_sum(values: np.ndarray, nested: tuple, rows: int, cols: int) -> np.ndarray:
+    down = nested[1]
+    return values.reshape(rows, down, cols, down).sum(axis=(1, 3))
 
 
 def _read_part(src, row0: int, col0: int, h: int, w: int, fill: float, dtype: str) -> np.ndarray:
