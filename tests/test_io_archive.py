@@ -284,3 +284,19 @@ def test_scene_off_the_grid_is_warped_like_gdal(tmp_path):
                   src_nodata=0, dst_nodata=0)
     right = ref[:, 21:] > 0  # columns the second scene covers fully
     np.testing.assert_allclose(v[2, :, 21:][right], (ref[:, 21:] * SR_SCALE - 0.2)[right], atol=1e-6)
+
+
+def test_threaded_and_process_cluster_give_the_same_cube(tmp_path):
+    # the per-date readers travel to dask.distributed worker processes (pickled) and read the same values
+    import distributed
+
+    refl = smooth_reflectance((30, 30), seed=14)
+    write_landsat_scene(tmp_path, refl, date="20200815")
+    write_s2_product(tmp_path, np.kron(refl, np.ones((1, 3, 3))), date="20210815", driver="GTiff")
+    cube = open_archive(tmp_path, chunks=16)
+    threaded = cube.data.compute(scheduler="threads")
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=":0") as cluster, \
+            distributed.Client(cluster) as client:
+        clustered = client.compute(cube.data).result()
+    np.testing.assert_array_equal(clustered, threaded)
+    assert np.isfinite(threaded).all()

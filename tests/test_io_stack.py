@@ -353,3 +353,23 @@ def test_chunks_are_band_last_views_with_values_as_read_by_rasterio(tmp_path, in
         raw = src.read()
     ref = _decode_reference(raw, [1e-4] * len(BANDS), [0.0] * len(BANDS), [NODATA] * len(BANDS))
     np.testing.assert_array_equal(cube.values[0], ref)
+
+
+def test_band_descriptions_naming_roles_are_understood(write_geotiff, tmp_path):
+    # a file whose bands are described 'Blue', 'Green', 'Red', 'NIR', 'SWIR1', 'SWIR2' (as some tools write
+    # them): with the OLI sensor they are B2..B7 (USGS OLI band designations), never silently ignored
+    from unmix.errors import BandMismatchError
+
+    data = np.arange(6 * 4 * 5, dtype=np.float32).reshape(6, 4, 5) / 1000
+    roles = ["Blue", "Green", "Red", "NIR", "SWIR1", "SWIR2"]
+    (tmp_path / "s").mkdir()
+    (tmp_path / "m").mkdir()
+    write_geotiff(tmp_path / "s" / "scene_2020-05-01.tif", data, descriptions=roles, dtype="float32")
+    cube = open_stack(tmp_path / "s", sensor="landsat-8-oli")
+    assert [str(b) for b in cube["band"].values] == ["B2", "B3", "B4", "B5", "B6", "B7"]
+    tm = open_stack(tmp_path / "s", sensor="landsat-5-tm")
+    assert [str(b) for b in tm["band"].values] == ["B1", "B2", "B3", "B4", "B5", "B7"]
+    write_geotiff(tmp_path / "m" / "scene_2020-05-01.tif", data, descriptions=roles[:5] + ["thermal"],
+                  dtype="float32")
+    with pytest.raises(BandMismatchError, match="'thermal'"):
+        open_stack(tmp_path / "m", sensor="landsat-8-oli")

@@ -23,7 +23,7 @@ from ..products.grid_mapping import grid_mapping_attrs, xy_attrs
 from .grid import TargetGrid
 from .landsat import landsat_scenes
 from .quality import check_mask, default_mask
-from .read import DateReader
+from .read import DateReader, source_file
 from .scenes import Scene
 from .sentinel2 import sentinel2_scenes
 from .stac import is_stac, stac_scenes
@@ -104,6 +104,7 @@ def open_archive(
     by_day: dict[np.datetime64, list[Scene]] = {}
     for s in scenes:
         by_day.setdefault(s.date, []).append(s)
+    files = {p: source_file(p) for sc in scenes for p in (*sc.bands.values(), sc.quality) if p}
     readers, sensors, products = [], [], []
     for day, group in sorted(by_day.items()):
         kinds = {s.sensor for s in group}
@@ -111,7 +112,8 @@ def open_archive(
             group = [s for s in group if s.sensor == group[0].sensor]
         readers.append(DateReader(
             date=str(day), scenes=tuple(group), bands=tuple(tuple(bands_for_roles(s.sensor, roles)) for s in group),
-            grid=grid, masks=tuple(masks[s.quality_kind] for s in group), mask_share=float(mask_share)))
+            grid=grid, masks=tuple(masks[s.quality_kind] for s in group), mask_share=float(mask_share),
+            files=tuple((p, files[p]) for s in group for p in (*s.bands.values(), s.quality) if p)))
         sensors.append(group[0].sensor)
         products.append(" + ".join(s.product_id for s in group))
 

@@ -16,7 +16,9 @@ and mosaics the scenes of the date: the first scene that has a valid value for a
 
 from __future__ import annotations
 
+import contextlib
 import math
+import os
 from dataclasses import dataclass
 
 import numpy as np
@@ -24,9 +26,32 @@ import numpy as np
 from ...errors import StackReadError
 from .grid import TargetGrid
 from .quality import masked
+from ..stack._tiff_blocks import BlockLayout, block_layout, read_window
+from ..stack.files import FileIdentity
+from ._numba import nested_mean, nested_share
 from .scenes import Scene
 
 __all__ = ["DateReader"]
+
+
+@dataclass(frozen=True)
+class SourceFile:
+    """How one file of a scene is read: its recorded version, and its block layout for direct reads."""
+
+    identity: FileIdentity | None  # None for files inside tar archives or on web servers
+    layout: BlockLayout | None  # plain GeoTIFF layouts are decoded directly (tifffile); others by GDAL
+
+
+def source_file(gdal_path: str) -> SourceFile:
+    """Record the version and the layout of a scene file (headers only)."""
+    import rasterio
+
+    if gdal_path.startswith("/vsi"):
+        return SourceFile(None, None)
+    with open(gdal_path, "rb") as fh, rasterio.open(gdal_path) as src:
+        identity = FileIdentity.of(os.fstat(fh.fileno()))
+        layout = block_layout(gdal_path, fh, src) if src.count == 1 else None
+    return SourceFile(identity, layout)
 
 
 @dataclass(frozen=True)
@@ -39,6 +64,7 @@ class DateReader:
     grid: TargetGrid
     masks: tuple  # per scene: the quality names masked
     mask_share: float = 0.0
+    files: tuple = ()  # (GDAL path, SourceFile) of every file, recorded when the archive was opened
 
     def __call__(self, window: tuple[int, int, int, int]) -> np.ndarray:
         row0, row1, col0, col1 = window
@@ -57,6 +83,8 @@ class DateReader:
                 detail = f"{exc}" + (f" ({cause})" if cause is not None and str(cause) not in str(exc) else "")
                 raise StackReadError(f"reading {scene.product_id} (date {self.date}), rows {row0}-{row1}, columns "
                                      f"{col0}-{col1} failed: {detail}; the product may be damaged") from None
+            if len(self.scenes) == 1:  # nothing to mosaic
+                return values[np.newaxis]
             take = todo & ok
             out[:, take] = values[:, take]
             todo &= ~ok
@@ -70,14 +98,19 @@ class DateReader:
         h, w = row1 - row0, col1 - col0
         values = np.empty((len(bands), h, w), dtype=np.float32)
         ok = np.ones((h, w), dtype=bool)
+        files = dict(self.files)
         for k, band in enumerate(bands):
-            with rasterio.open(scene.bands[band]) as src:
-                raw, valid = _read_on_grid(src, self.grid, window, scene.nodata)
+            path = scene.bands[band]
+            with _checked(path, files.get(path)), rasterio.open(path) as src:
+                direct = _Direct(path, files[path]) if files.get(path) and files[path].layout else None
+                raw, valid = _read_on_grid(src, self.grid, window, scene.nodata, direct)
             values[k] = raw * np.float32(scene.scale[band]) + np.float32(scene.offset[band])
             ok &= valid
         if scene.quality is not None:
-            with rasterio.open(scene.quality) as src:
-                ok &= ~_masked_on_grid(src, self.grid, window, scene.quality_kind, names, self.mask_share)
+            path = scene.quality
+            with _checked(path, files.get(path)), rasterio.open(path) as src:
+                direct = _Direct(path, files[path]) if files.get(path) and files[path].layout else None
+                ok &= ~_masked_on_grid(src, self.grid, window, scene.quality_kind, names, self.mask_share, direct)
         values[:, ~ok] = np.nan
         return values, ok
 
@@ -98,7 +131,40 @@ def _on_grid(src, grid: TargetGrid) -> tuple[int, int] | None:
     return round(row), round(col)
 
 
-def _read_on_grid(src, grid: TargetGrid, window: tuple, nodata: float) -> tuple[np.ndarray, np.ndarray]:
+@contextlib.contextmanager
+def _checked(path: str, recorded: SourceFile | None):
+    """The file under ``path`` must be the version recorded when the archive was opened, before and after."""
+    if recorded is None or recorded.identity is None:
+        yield
+        return
+    recorded.identity.check(os.stat(path), path)
+    yield
+    recorded.identity.check(os.stat(path), path)
+
+
+@dataclass(frozen=True)
+class _Direct:
+    """A band file read from its own blocks (tifffile + imagecodecs), fill values as NaN."""
+
+    path: str
+    file: SourceFile
+
+    def read(self, row0: int, col0: int, h: int, w: int, nodata: float) -> np.ndarray:
+        """float32 values of a window that may reach outside the file (NaN there and for fill values)."""
+        layout = self.file.layout
+        out = np.full((h, w), np.nan, np.float32)
+        r0, c0 = max(row0, 0), max(col0, 0)
+        r1, c1 = min(row0 + h, layout.height), min(col0 + w, layout.width)
+        if r1 > r0 and c1 > c0:
+            one = np.ones(1)
+            part = read_window(layout, self.path, self.file.identity, (1,), (r0, r1, c0, c1), one, 0 * one,
+                               np.array([nodata], np.float64), np.array([True]))
+            out[r0 - row0:r1 - row0, c0 - col0:c1 - col0] = part[:, :, 0]
+        return out
+
+
+def _read_on_grid(src, grid: TargetGrid, window: tuple, nodata: float,
+                  direct: _Direct | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Stored values of band 1 of ``src`` on the grid window as float32, and where they are not fill."""
     from affine import Affine
     from rasterio.crs import CRS
@@ -111,18 +177,19 @@ def _read_on_grid(src, grid: TargetGrid, window: tuple, nodata: float) -> tuple[
     offset = _on_grid(src, grid)
     if offset is not None:
         r, c = offset
+        if direct is not None:
+            raw = direct.read(row0 + r, col0 + c, h, w, nodata)
+            valid = np.isfinite(raw)
+            raw[~valid] = np.float32(nodata)
+            return raw, valid
         raw = _read_part(src, row0 + r, col0 + c, h, w, nodata, "float32")
         return raw, raw != np.float32(nodata)
     nested = _nested_grid(src, grid)
     if nested is not None:  # finer pixels nested in the grid's (10 or 20 m onto 30 m): exact area means in numpy
-        values, rows, cols = _fine_window(src, grid, nested, window, nodata)
-        ok = values != np.float32(nodata)
-        total = _block_sum(np.where(ok, values, 0).astype(np.float64), nested, rows, cols)
-        count = _block_sum(ok.astype(np.float64), nested, rows, cols)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            mean = (total / count).astype(np.float32)
-        valid = count > 0
-        mean[~valid] = np.float32(nodata)
+        part, r_off, c_off = _source_part(src, nested, window, nodata, src.dtypes[0], direct)
+        mean = np.empty((row1 - row0, col1 - col0), np.float32)
+        valid = np.empty(mean.shape, np.bool_)
+        nested_mean(part, nested[0], nested[1], r_off, c_off, part.dtype.type(nodata), mean, valid)
         return mean, valid
     finer = max(abs(src.transform.a), abs(src.transform.e)) < 0.99 * min(grid.resolution)
     with WarpedVRT(src, crs=CRS.from_wkt(grid.crs_wkt), transform=Affine(*grid.transform), width=grid.width,
@@ -133,7 +200,8 @@ def _read_on_grid(src, grid: TargetGrid, window: tuple, nodata: float) -> tuple[
     return raw, valid & (raw != np.float32(nodata))
 
 
-def _masked_on_grid(src, grid: TargetGrid, window: tuple, kind: str, names: tuple, share: float) -> np.ndarray:
+def _masked_on_grid(src, grid: TargetGrid, window: tuple, kind: str, names: tuple, share: float,
+                    direct: _Direct | None = None) -> np.ndarray:
     """True where more than ``share`` of a target pixel is covered by masked quality pixels (or no quality)."""
     from affine import Affine
     from rasterio.crs import CRS
@@ -146,13 +214,15 @@ def _masked_on_grid(src, grid: TargetGrid, window: tuple, kind: str, names: tupl
     offset = _on_grid(src, grid)
     if offset is not None:
         r, c = offset
-        qa, nodata = _read_quality(src, row0 + r, col0 + c, h, w)
+        qa, nodata = _read_quality(src, row0 + r, col0 + c, h, w, direct)
         return masked(kind, qa, names) | nodata | _outside(src, r + row0, c + col0, h, w)
     nested = _nested_grid(src, grid)
     if nested is not None:  # share of each target pixel covered by masked quality pixels, exactly
-        qa, rows, cols = _fine_window(src, grid, nested, window, None)
-        bad = masked(kind, qa, names) | (qa == int(src.nodata) if src.nodata is not None else False) | (qa < 0)
-        cover = _block_sum(bad.astype(np.float64), nested, rows, cols) / float(nested[1] ** 2)
+        (r_off, c_off), (s_r0, s_c0, s_h, s_w) = _source_span(nested, window)
+        qa, nodata = _read_quality(src, s_r0, s_c0, s_h, s_w, direct)
+        bad = masked(kind, qa, names) | nodata | _outside(src, s_r0, s_c0, s_h, s_w)
+        cover = np.empty((row1 - row0, col1 - col0), np.float64)
+        nested_share(bad.view(np.uint8), nested[0], nested[1], r_off, c_off, cover)
         return cover > share if share > 0 else cover > 1e-6
     dst_t = Affine(*grid.window_transform(row0, col0))
     left, top = dst_t @ (0, 0)
@@ -204,25 +274,25 @@ def _nested_grid(src, grid: TargetGrid) -> tuple[int, int, int, int] | None:
     return up, down, round(row), round(col)
 
 
-def _fine_window(src, grid: TargetGrid, nested: tuple, window: tuple, fill) -> tuple[np.ndarray, int, int]:
-    """Source values of a window on the common fine grid (each source pixel repeated up x up times)."""
+def _source_span(nested: tuple, window: tuple) -> tuple[tuple[int, int], tuple[int, int, int, int]]:
+    """((row, col) offset of the window on the fine grid within the source span, (row0, col0, h, w) of
+    the source pixels under a target window)."""
     up, down, orow, ocol = nested
     row0, row1, col0, col1 = window
     f_r0, f_c0 = orow + row0 * down, ocol + col0 * down
     f_r1, f_c1 = orow + row1 * down, ocol + col1 * down
     s_r0, s_c0 = f_r0 // up, f_c0 // up
     s_r1, s_c1 = -(-f_r1 // up), -(-f_c1 // up)
-    dtype = "float32" if fill is not None else "int64"
-    part = _read_part(src, s_r0, s_c0, s_r1 - s_r0, s_c1 - s_c0, fill if fill is not None else -1, dtype)
-    if up > 1:
-        part = np.repeat(np.repeat(part, up, axis=0), up, axis=1)
-    r, c = f_r0 - s_r0 * up, f_c0 - s_c0 * up
-    return part[r:r + (row1 - row0) * down, c:c + (col1 - col0) * down], row1 - row0, col1 - col0
+    return (f_r0 - s_r0 * up, f_c0 - s_c0 * up), (s_r0, s_c0, s_r1 - s_r0, s_c1 - s_c0)
 
 
-def _block_sum(values: np.ndarray, nested: tuple, rows: int, cols: int) -> np.ndarray:
-    down = nested[1]
-    return values.reshape(rows, down, cols, down).sum(axis=(1, 3))
+def _source_part(src, nested: tuple, window: tuple, fill, dtype, direct: _Direct | None = None
+                 ) -> tuple[np.ndarray, int, int]:
+    """The source pixels under a target window, and the window's offset on the fine grid within them."""
+    (r_off, c_off), (s_r0, s_c0, s_h, s_w) = _source_span(nested, window)
+    if direct is not None:
+        return direct.read(s_r0, s_c0, s_h, s_w, fill), r_off, c_off  # fill values and outside as NaN
+    return _read_part(src, s_r0, s_c0, s_h, s_w, fill, dtype), r_off, c_off
 
 
 def _read_part(src, row0: int, col0: int, h: int, w: int, fill: float, dtype: str) -> np.ndarray:
@@ -241,11 +311,17 @@ def _read_part(src, row0: int, col0: int, h: int, w: int, fill: float, dtype: st
     return out
 
 
-def _read_quality(src, row0: int, col0: int, h: int, w: int) -> tuple[np.ndarray, np.ndarray]:
+def _read_quality(src, row0: int, col0: int, h: int, w: int, direct: _Direct | None = None
+                  ) -> tuple[np.ndarray, np.ndarray]:
     """Quality values of a window (0 outside the file) and where they are the band's own nodata."""
-    qa = _read_part(src, row0, col0, h, w, 0, "int64")
     nodata = src.nodata
-    bad = qa == int(nodata) if nodata is not None and np.isfinite(nodata) else np.zeros(qa.shape, bool)
+    has_nodata = nodata is not None and np.isfinite(nodata)
+    if direct is not None:
+        values = direct.read(row0, col0, h, w, float(nodata) if has_nodata else np.nan)
+        bad = np.isnan(values)
+        return np.where(bad, 0, values).astype(np.int64), bad
+    qa = _read_part(src, row0, col0, h, w, 0, "int64")
+    bad = qa == int(nodata) if has_nodata else np.zeros(qa.shape, bool)
     return qa, bad
 
 

@@ -10,6 +10,7 @@ from typing import Any
 import numpy as np
 
 from ...errors import BandMismatchError, InputError, UnknownNameError
+from ...sensors.roles import role_of_description
 from .dates import _dates_for, _lookup_date, read_dates_csv
 from .files import find_stack_files
 from .geotiff import _Header
@@ -73,8 +74,11 @@ def _band_names_for(
     else:
         descs = [head.descriptions[i - 1] for i in refl_indexes]
         sensor_bands = tuple(getattr(sensor, "band_names", ()) or ())
+        roles = [role_of_description(d) for d in descs]
         if all(descs) and (not sensor_bands or all(d in sensor_bands for d in descs)):
             names = [str(d) for d in descs]
+        elif any(roles) and not all(d in sensor_bands for d in descs):
+            names = _names_from_roles(head, descs, roles, sensor)
         elif sensor_bands:
             if len(sensor_bands) != n:
                 raise BandMismatchError(
@@ -88,6 +92,29 @@ def _band_names_for(
     if len(set(names)) != len(names):
         raise BandMismatchError(f"band names repeat ({', '.join(names)}); give each band of {head.path} its own name")
     return names
+
+
+def _names_from_roles(head: _Header, descs: list, roles: list, sensor: Any) -> list[str]:
+    """Band names of a file whose band descriptions name roles ('Red', 'SWIR1', ...), never ignored."""
+    from ...sensors.roles import band_roles
+
+    sensor_id = getattr(sensor, "id", sensor)
+    unknown = [d for d, r in zip(descs, roles) if r is None]
+    if unknown:
+        raise BandMismatchError(f"{head.path}: band descriptions {', '.join(map(repr, descs))} mix band roles with "
+                                f"names that are neither roles nor bands of {sensor_id} ({', '.join(map(repr, unknown))}); "
+                                "say which bands the file holds with --band-names")
+    try:
+        table = band_roles(str(sensor_id))
+    except Exception:
+        raise BandMismatchError(f"{head.path}: band descriptions {', '.join(map(repr, descs))} name band roles, but "
+                                f"sensor {sensor_id} has no role table; give --band-names") from None
+    lacking = [d for d, r in zip(descs, roles) if r not in table]
+    if lacking:
+        raise BandMismatchError(f"{head.path}: sensor {sensor_id} has no band for the description(s) "
+                                f"{', '.join(map(repr, lacking))}; give --band-names or choose the sensor that "
+                                "made the file")
+    return [table[r] for r in roles]
 
 
 def _find_qa_files(qa: Any, files: Sequence[Path], dates: list[np.datetime64], dates_arg: Any) -> list[Path]:
