@@ -24,11 +24,11 @@ from dataclasses import dataclass
 import numpy as np
 
 from ...errors import StackReadError
-from .grid import TargetGrid
-from .quality import masked
 from ..stack._tiff_blocks import BlockLayout, block_layout, read_window
 from ..stack.files import FileIdentity
 from ._numba import nested_mean, nested_share
+from .grid import TargetGrid
+from .quality import masked
 from .scenes import Scene
 
 __all__ = ["DateReader"]
