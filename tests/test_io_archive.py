@@ -300,3 +300,20 @@ def test_threaded_and_process_cluster_give_the_same_cube(tmp_path):
         clustered = client.compute(cube.data).result()
     np.testing.assert_array_equal(clustered, threaded)
     assert np.isfinite(threaded).all()
+
+
+def test_band_file_rewritten_after_opening_is_an_error(tmp_path):
+    # the version of every plain file is recorded when the archive is opened (size, mtime, inode) and
+    # checked at each read: a rewrite in between stops the read with one line naming the file
+    import os
+
+    refl = smooth_reflectance((20, 20), seed=15)
+    folder = write_landsat_scene(tmp_path, refl)
+    cube = open_archive(tmp_path)
+    band = next(folder.glob("*_SR_B4.TIF"))
+    data = band.read_bytes()
+    band.unlink()
+    band.write_bytes(data)  # same bytes, a new file (new inode)
+    os.utime(band, ns=(1, 1))
+    with pytest.raises(StackReadError, match=r"SR_B4.TIF was modified after the stack was opened"):
+        cube.compute()
