@@ -7,7 +7,7 @@ Three stacks of the same scene (size x size pixels of 30 m, N dates, the same mi
 * ``landsat``: Landsat Collection 2 Level-2 layout, one uint16 deflate GeoTIFF per band, QA_PIXEL and
   MTL per scene (written by :func:`unmix.io.archive.write.write_landsat_l2`);
 * ``sentinel2``: Sentinel-2 L2A layout, 10 m bands (blue, green, red) and 20 m bands (nir = B8A, swir1,
-  swir2) plus SCL as GeoTIFF, read onto the 30 m grid by area averaging.
+  swir2) plus SCL as GeoTIFF, read onto the 30 m grid of the other two (``--grid``) by area averaging.
 
 Each is run with the command in a subprocess (peak resident memory polled with psutil); the script
 prints pixel-dates per second, the ratio to ``plain`` and peak memory. Targets (issue on real archives):
@@ -145,8 +145,12 @@ def main(argv: list[str] | None = None) -> None:
     with tempfile.TemporaryDirectory(prefix="unmix-bench-archive-") as tmp:
         for r in range(args.rounds):
             for kind, path in paths.items():
-                extra = ["--sensor", "landsat-8-oli", "--band-names", "B2,B3,B4,B5,B6,B7", "--scale", "0.0001"] \
-                    if kind == "plain" else []
+                if kind == "plain":
+                    extra = ["--sensor", "landsat-8-oli", "--band-names", "B2,B3,B4,B5,B6,B7", "--scale", "0.0001"]
+                elif kind == "sentinel2":  # onto the 30 m grid of the other two (default: its own 20 m grid)
+                    extra = ["--grid", str(sorted(paths["plain"].glob("scene_*.tif"))[0])]
+                else:
+                    extra = []
                 seconds, peak, summary = run([str(path), *common, *extra, "--out", str(Path(tmp) / kind)])
                 px = args.size * args.size * args.dates
                 rates[kind].append(px / seconds)
