@@ -162,3 +162,70 @@ def test_no_pseudo_change_at_sensor_switches(tmp_path, capsys):
     abrupt = np.isin(labels, [trends["trajectory"].attrs["flag_values"][meanings.index(n)]
                               for n in ("abrupt_increase", "abrupt_decrease")])
     assert abrupt.sum() <= 0.01 * abrupt.size
+
+
+def _bad_archive(tmp_path, case):
+    """A downloads folder holding one defective delivered product (the issue's list of bad inputs)."""
+    from _archive_helpers import smooth_reflectance
+
+    root = tmp_path / "downloads"
+    refl = smooth_reflectance((10, 10), seed=1)
+    if case == "band file missing":
+        write_landsat_scene(root, refl, skip=("B4",))
+    elif case == "metadata missing":
+        write_landsat_scene(root, refl, skip=("MTL",))
+    elif case == "metadata of another collection":
+        write_landsat_scene(root, refl, collection="01")
+    elif case == "quality band of the wrong size":
+        import rasterio
+        from affine import Affine
+
+        folder = write_landsat_scene(root, refl)
+        with rasterio.open(next(folder.glob("*_QA_PIXEL.TIF")), "w", driver="GTiff", width=4, height=4, count=1,
+                           dtype="uint16", crs="EPSG:32612", transform=Affine(30, 0, 500000, 0, -30, 3600000)) as dst:
+            dst.write(np.zeros((1, 4, 4), np.uint16))
+    elif case == "identifier that cannot be parsed":
+        (root / "x").mkdir(parents=True)
+        (root / "x" / "LC08_L2SP_0380_20200815_x_02_T1_SR_B4.TIF").write_bytes(b"II*\x00")
+    elif case == "JPEG 2000 that does not open":
+        safe = write_s2_product(root, np.kron(refl, np.ones((1, 2, 2))))
+        next(safe.rglob("*_B03_10m.jp2")).write_bytes(b"\x00\x00\x00\x0cjP  " + b"\x00" * 32)
+    elif case == "STAC item without the needed assets":
+        import datetime
+
+        import pystac
+
+        folder = write_landsat_scene(root / "files", refl)
+        item = pystac.Item(id="scene-1", geometry=None, bbox=None, datetime=datetime.datetime(2020, 8, 15),
+                           properties={})
+        for f in folder.iterdir():
+            if "QA_PIXEL" not in f.name:
+                item.add_asset(f.name, pystac.Asset(href=str(f)))
+        item.save_object(dest_href=str(root / "item.json"), include_self_link=False)
+        return root / "item.json"
+    elif case == "sensor without a measured response":
+        write_landsat_scene(root, refl, sensor="LT04")
+    return root
+
+
+@pytest.mark.parametrize("case, names", [
+    ("band file missing", ["LC08_L2SP_038037_20200815", "SR_B4"]),
+    ("metadata missing", ["LC08_L2SP_038037_20200815", "MTL"]),
+    ("metadata of another collection", ["LC08_L2SP_038037_20200815", "Collection 01"]),
+    ("quality band of the wrong size", ["LC08_L2SP_038037_20200815", "QA_PIXEL"]),
+    ("identifier that cannot be parsed", ["LC08_L2SP_0380_20200815", "cannot be parsed"]),
+    ("JPEG 2000 that does not open", ["S2A_MSIL2A_20220315", "B03_10m.jp2"]),
+    ("STAC item without the needed assets", ["STAC item scene-1", "QA_PIXEL"]),
+    ("sensor without a measured response", ["LT04_L2SP_038037_20200815", "no measured spectral response"]),
+])
+def test_bad_delivered_input_is_one_line_exit_2_no_product(tmp_path, capsys, case, names):
+    source = _bad_archive(tmp_path, case)
+    code, out, err = run([source, "--library", shipped_library_path("demo_library"), "--out", tmp_path / "out"],
+                         capsys)
+    lines = err.strip().splitlines()
+    assert code == 2 and len(lines) == 1 and lines[0].startswith("unmix: error:"), err
+    assert "Traceback" not in err
+    for name in names:
+        assert name in lines[0], (name, lines[0])
+    out_dir = tmp_path / "out"
+    assert not out_dir.exists() or not [p for p in out_dir.iterdir()]  # no product, no temporary file
