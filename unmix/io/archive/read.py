@@ -186,7 +186,8 @@ def _read_on_grid(src, grid: TargetGrid, window: tuple, nodata: float,
         return raw, raw != np.float32(nodata)
     nested = _nested_grid(src, grid)
     if nested is not None:  # finer pixels nested in the grid's (10 or 20 m onto 30 m): exact area means in numpy
-        part, r_off, c_off = _source_part(src, nested, window, nodata, src.dtypes[0], direct)
+        # GDAL's own decode of the native type is the faster one for the many fine pixels (measured 3x)
+        part, r_off, c_off = _source_part(src, nested, window, nodata, src.dtypes[0])
         mean = np.empty((row1 - row0, col1 - col0), np.float32)
         valid = np.empty(mean.shape, np.bool_)
         nested_mean(part, nested[0], nested[1], r_off, c_off, part.dtype.type(nodata), mean, valid)
@@ -219,7 +220,7 @@ def _masked_on_grid(src, grid: TargetGrid, window: tuple, kind: str, names: tupl
     nested = _nested_grid(src, grid)
     if nested is not None:  # share of each target pixel covered by masked quality pixels, exactly
         (r_off, c_off), (s_r0, s_c0, s_h, s_w) = _source_span(nested, window)
-        qa, nodata = _read_quality(src, s_r0, s_c0, s_h, s_w, direct)
+        qa, nodata = _read_quality(src, s_r0, s_c0, s_h, s_w)
         bad = masked(kind, qa, names) | nodata | _outside(src, s_r0, s_c0, s_h, s_w)
         cover = np.empty((row1 - row0, col1 - col0), np.float64)
         nested_share(bad.view(np.uint8), nested[0], nested[1], r_off, c_off, cover)
@@ -320,8 +321,8 @@ def _read_quality(src, row0: int, col0: int, h: int, w: int, direct: _Direct | N
         values = direct.read(row0, col0, h, w, float(nodata) if has_nodata else np.nan)
         bad = np.isnan(values)
         return np.where(bad, 0, values).astype(np.int64), bad
-    qa = _read_part(src, row0, col0, h, w, 0, "int64")
-    bad = qa == int(nodata) if has_nodata else np.zeros(qa.shape, bool)
+    qa = _read_part(src, row0, col0, h, w, 0, src.dtypes[0])
+    bad = qa == nodata if has_nodata else np.zeros(qa.shape, bool)
     return qa, bad
 
 
