@@ -287,12 +287,9 @@ def _source_span(nested: tuple, window: tuple) -> tuple[tuple[int, int], tuple[i
     return (f_r0 - s_r0 * up, f_c0 - s_c0 * up), (s_r0, s_c0, s_r1 - s_r0, s_c1 - s_c0)
 
 
-def _source_part(src, nested: tuple, window: tuple, fill, dtype, direct: _Direct | None = None
-                 ) -> tuple[np.ndarray, int, int]:
+def _source_part(src, nested: tuple, window: tuple, fill, dtype) -> tuple[np.ndarray, int, int]:
     """The source pixels under a target window, and the window's offset on the fine grid within them."""
     (r_off, c_off), (s_r0, s_c0, s_h, s_w) = _source_span(nested, window)
-    if direct is not None:
-        return direct.read(s_r0, s_c0, s_h, s_w, fill), r_off, c_off  # fill values and outside as NaN
     return _read_part(src, s_r0, s_c0, s_h, s_w, fill, dtype), r_off, c_off
 
 
