@@ -271,11 +271,11 @@ def year_groups(dates, mask, window: DateWindow | None = None) -> tuple[np.ndarr
     return groups, years
 
 
-def check_date_count(n_found: int, n_needed: int, what: str = "the window") -> None:
+def check_date_count(n_found: int, n_needed: int, what: str = "the window", unit: str = "dates") -> None:
     """Raise :class:`~unmix.errors.InputError` when fewer than ``n_needed`` dates (or years) were chosen."""
     if int(n_found) < int(n_needed):
         raise InputError(
-            f"{what} selects {int(n_found)} dates; the trend tests need at least {int(n_needed)}: widen the "
+            f"{what} selects {int(n_found)} {unit}; the trend tests need at least {int(n_needed)}: widen the "
             "day-of-year window, add years or lengthen the date range")
 
 
