@@ -191,3 +191,14 @@ def test_spread_warning_and_empty_year_warning():
     with pytest.warns(EmptyWindowYearWarning, match="2002"):
         warn_window(w, [2001, 2002, 2003], [3, 0, 1], spread_days=10.0)
     warn_window(w, [2001], [1], spread_days=30.0)  # at the limit: no warning (UnmixWarning is an error here)
+
+
+def test_kernel_module_imports_no_upper_layer():
+    import subprocess
+    import sys
+
+    # house rule (DEVELOPERS.md): kernels import no xarray / dask / rasterio / click / matplotlib
+    code = ("import sys, unmix.comparability.phenology; "
+            "print(','.join(m for m in ('xarray', 'dask', 'rasterio', 'click', 'matplotlib') if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == ""

@@ -66,6 +66,8 @@ def test_lazy_composites_equal_eager_and_stay_lazy():
         np.testing.assert_array_equal(lazy.values, eager.values)  # eager (numpy) run
         np.testing.assert_array_equal(lazy.n_obs.values, eager.n_obs.values)
         np.testing.assert_array_equal(lazy.time.values, eager.time.values)
+    on_dates = lazy.swap_dims(year="time")  # the form the trend tests take: real dates on time
+    assert on_dates.dims[0] == "time" and np.issubdtype(on_dates.time.dtype, np.datetime64)
 
 
 def test_closest_composite_takes_the_valid_date_nearest_the_target_across_the_new_year():
