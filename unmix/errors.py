@@ -25,6 +25,9 @@ __all__ = [
     "ProductMismatchError",
     "UnmixWarning",
     "CollinearityWarning",
+    "WindowWarning",
+    "EmptyWindowYearWarning",
+    "WindowSpreadWarning",
 ]
 
 
@@ -105,3 +108,15 @@ class ImplausibleReflectanceWarning(UnmixWarning):
 
 class DeprecatedKeyWarning(UnmixWarning, DeprecationWarning):
     """A file uses a key that is still read but will be dropped (the message names the replacement)."""
+
+
+class WindowWarning(UnmixWarning):
+    """A phenological window selects dates that may not compare like with like between years."""
+
+
+class EmptyWindowYearWarning(WindowWarning):
+    """A year has no observation inside the day-of-year window (its composite is missing; years named)."""
+
+
+class WindowSpreadWarning(WindowWarning):
+    """The window's dates of different years lie further apart than the set limit (days and years named)."""
