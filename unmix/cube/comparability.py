@@ -31,7 +31,7 @@ from unmix.comparability import (
     fit_date,
     shift_image,
 )
-from unmix.errors import InputError, UnknownNameError
+from unmix.errors import UnknownNameError
 
 __all__ = ["reference_date", "measure_registration", "measure_radiometry", "registration_verdict",
            "correct_registration", "normalise_cube"]
