@@ -33,8 +33,8 @@ from unmix.comparability import (
 )
 from unmix.errors import UnknownNameError
 
-__all__ = ["reference_date", "measure_registration", "measure_radiometry", "registration_verdict",
-           "correct_registration", "normalise_cube"]
+__all__ = ["reference_date", "block_layout", "measure_registration", "measure_radiometry", "measure_comparability",
+           "registration_verdict", "correct_registration", "normalise_cube"]
 
 
 def _date_label(value) -> str:
@@ -68,56 +68,53 @@ def reference_date(cube: xr.DataArray, preferred=None):
     return times[int(np.argmax(counts.values))]
 
 
-def _check_band(cube: xr.DataArray, band) -> None:
+def _snap(starts: list[int], size: int, chunks: tuple[int, ...]) -> list[int]:
+    """Move each window of ``size`` inside the chunk holding its centre when it fits, so a window reads
+    one chunk instead of up to four."""
+    edges = np.concatenate([[0], np.cumsum(chunks)])
+    out = []
+    for s in starts:
+        k = int(np.searchsorted(edges, s + size / 2, side="right")) - 1
+        lo, hi = int(edges[max(k, 0)]), int(edges[min(k + 1, len(edges) - 1)])
+        out.append(min(max(s, lo), hi - size) if hi - lo >= size else s)
+    return out
+
+
+def block_layout(cube: xr.DataArray, n_blocks: int = 9, block: int = 256) -> list[tuple[slice, slice]]:
+    """Windows of :func:`unmix.comparability.block_windows`, each moved inside one chunk of a dask cube."""
+    wins = block_windows((cube.sizes["y"], cube.sizes["x"]), n_blocks, block)
+    if not isinstance(cube.data, da.Array):
+        return wins
+    ax_y, ax_x = cube.dims.index("y"), cube.dims.index("x")
+    ys = _snap([w[0].start for w in wins], wins[0][0].stop - wins[0][0].start, cube.data.chunks[ax_y])
+    xs = _snap([w[1].start for w in wins], wins[0][1].stop - wins[0][1].start, cube.data.chunks[ax_x])
+    return [(slice(y, y + w[0].stop - w[0].start), slice(x, x + w[1].stop - w[1].start))
+            for y, x, w in zip(ys, xs, wins)]
+
+
+def _read_windows(cube: xr.DataArray, windows) -> list[np.ndarray]:
+    """The windows of a (time, band, y, x) cube, computed together: (time, band, rows, cols) float64 each."""
+    cube = cube.transpose("time", "band", "y", "x")
+    return [np.asarray(p, dtype=np.float64) for p in dask.compute(*[cube.isel(y=wy, x=wx).data for wy, wx in windows])]
+
+
+def _band_index(cube: xr.DataArray, band) -> int:
     bands = [str(b) for b in cube["band"].values]
     if str(band) not in bands:
         raise UnknownNameError(f"band {band!r} for co-registration is not in the stack; its bands are "
                                f"{', '.join(bands)}. Choose one of them.")
+    return bands.index(str(band))
 
 
-def measure_registration(cube: xr.DataArray, *, band, reference, n_blocks: int = 9, block: int = 256,
-                         upsample: int = 20, min_valid: float = 0.5, min_blocks: int = 3) -> xr.Dataset:
-    """Sub-pixel shift of every date against ``reference`` from phase correlation over blocks.
-
-    Only ``n_blocks`` windows of ``block`` x ``block`` pixels of one band are read (spread over the scene,
-    computed together), so memory is bounded by ``n_blocks x block^2 x n_dates`` values.
-
-    Parameters
-    ----------
-    cube : (time, band, y, x) DataArray
-    band : str
-        Band to correlate (a band name of the cube).
-    reference : date
-        Reference date (see :func:`reference_date`).
-    n_blocks, block, upsample, min_valid, min_blocks
-        Layout of the blocks and the kernel's settings (:func:`unmix.comparability.block_shifts`).
-
-    Returns
-    -------
-    Dataset on ``time``
-        ``shift_y``, ``shift_x`` [pixel] (the shift that aligns the date to the reference), ``shift_sd``
-        [pixel] (spread between blocks: median absolute deviation x 1.4826), ``n_blocks`` measured and
-        ``reason`` ('' when measured, else why not; the shift is then NaN).
-
-    References
-    ----------
-    Guizar-Sicairos, M., Thurman, S. T. and Fienup, J. R. (2008). doi:10.1364/OL.33.000156
-    """
-    _check_band(cube, band)
-    ref = reference_date(cube, reference)
-    one = cube.sel(band=[b for b in cube["band"].values if str(b) == str(band)][0])
-    windows = block_windows((one.sizes["y"], one.sizes["x"]), n_blocks, block)
-    pieces = dask.compute(*[one.isel(y=wy, x=wx).data for wy, wx in windows])
-    pieces = [np.asarray(p, dtype=np.float64) for p in pieces]  # each (time, by, bx)
-    i_ref = int(np.flatnonzero(cube["time"].values == ref)[0])
-    n_t = cube.sizes["time"]
+def _registration(times, pieces, i_ref, *, band, block, upsample, min_valid, min_blocks, ref) -> xr.Dataset:
+    n_t = len(times)
     out = {k: np.full(n_t, np.nan) for k in ("shift_y", "shift_x", "shift_sd")}
     count = np.zeros(n_t, dtype=np.int64)
     reason = np.full(n_t, "", dtype=object)
     for t in range(n_t):
         if t == i_ref:
             out["shift_y"][t] = out["shift_x"][t] = out["shift_sd"][t] = 0.0
-            count[t] = len(windows)
+            count[t] = len(pieces)
             continue
         found = [block_shift(p[i_ref], p[t], upsample=upsample, min_valid=min_valid) for p in pieces]
         est = combine_block_shifts(found, min_blocks=min_blocks)
@@ -131,9 +128,52 @@ def measure_registration(cube: xr.DataArray, *, band, reference, n_blocks: int =
                                                 "(median absolute deviation x 1.4826)"}),
          "n_blocks": ("time", count, {"long_name": "blocks measured"}),
          "reason": ("time", reason.astype(str), {"long_name": "why the shift was not measured ('' if it was)"})},
-        coords={"time": cube["time"].values},
+        coords={"time": times},
         attrs={"method": "phase correlation with upsampling (Guizar-Sicairos et al. 2008)", "band": str(band),
-               "reference": _date_label(ref), "block": block, "n_blocks": len(windows), "upsample": upsample})
+               "reference": _date_label(ref), "block": block, "n_blocks": len(pieces), "upsample": upsample})
+
+
+def measure_registration(cube: xr.DataArray, *, band, reference, n_blocks: int = 9, block: int = 256,
+                         upsample: int = 20, min_valid: float = 0.5, min_blocks: int = 3) -> xr.Dataset:
+    """Sub-pixel shift of every date against ``reference`` from phase correlation over blocks.
+
+    Only ``n_blocks`` windows of ``block`` x ``block`` pixels of one band are read (spread over the scene,
+    each inside one chunk where it fits, computed together), so memory is bounded by the blocks
+    (``n_blocks x block^2 x n_dates`` values) and the chunks they touch.
+
+    Parameters
+    ----------
+    cube : (time, band, y, x) DataArray
+    band : str
+        Band to correlate (a band name of the cube).
+    reference : date or None
+        Reference date (see :func:`reference_date`; None: the date with most valid pixels).
+    n_blocks, block, upsample, min_valid, min_blocks
+        Layout of the blocks and the kernel's settings (:func:`unmix.comparability.block_shifts`).
+
+    Returns
+    -------
+    Dataset on ``time``
+        ``shift_y``, ``shift_x`` [pixel] (the shift that aligns the date to the reference), ``shift_sd``
+        [pixel] (spread between blocks: median absolute deviation x 1.4826), ``n_blocks`` measured and
+        ``reason`` ('' when measured, else why not; the shift is then NaN).
+
+    Raises
+    ------
+    UnknownNameError
+        The band or the reference date is not in the cube.
+
+    References
+    ----------
+    Guizar-Sicairos, M., Thurman, S. T. and Fienup, J. R. (2008). doi:10.1364/OL.33.000156
+    """
+    k = _band_index(cube, band)
+    ref = reference_date(cube, reference)
+    windows = block_layout(cube, n_blocks, block)
+    pieces = _read_windows(cube.isel(band=[k]), windows)
+    i_ref = int(np.flatnonzero(cube["time"].values == ref)[0])
+    return _registration(cube["time"].values, [p[:, 0] for p in pieces], i_ref, band=band, block=block,
+                         upsample=upsample, min_valid=min_valid, min_blocks=min_blocks, ref=ref)
 
 
 def registration_verdict(shifts: xr.Dataset, *, warn: float = WARN_SHIFT, max_shift: float = MAX_SHIFT) -> xr.DataArray:
@@ -145,39 +185,42 @@ def registration_verdict(shifts: xr.Dataset, *, warn: float = WARN_SHIFT, max_sh
                         attrs={"warn": warn, "max_shift": max_shift, "units_of_levels": "pixel"})
 
 
-def _sample_index(ny: int, nx: int, sample: int, seed: int) -> tuple[np.ndarray, np.ndarray]:
-    rng = np.random.default_rng(seed)
-    flat = rng.choice(ny * nx, size=min(sample, ny * nx), replace=False)
-    flat.sort()
-    return flat // nx, flat % nx
+def _pick(block: np.ndarray, *, rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
+    return block[:, :, rows, cols]
 
 
-def measure_radiometry(cube: xr.DataArray, *, reference, sample: int = 20000, seed: int = 0,
-                       threshold: float = 0.95, min_pixels: int = 50, min_r2: float = MIN_R2,
-                       gain_tolerance: float = GAIN_TOLERANCE) -> xr.Dataset:
-    """Gain and offset per date and band that map the date onto ``reference`` (pseudo-invariant pixels).
+def _sample_scene(cube: xr.DataArray, sample: int, seed: int) -> np.ndarray:
+    """A fixed random sample of pixels over the whole scene, (time, pixel, band); each read task keeps
+    only its sampled pixels, so memory is bounded by the chunks in flight."""
+    data = cube.transpose("time", "band", "y", "x").data
+    data = data if isinstance(data, da.Array) else da.from_array(data, chunks=(1, -1, -1, -1))
+    ny, nx = data.shape[2:]
+    flat = np.sort(np.random.default_rng(seed).choice(ny * nx, size=min(sample, ny * nx), replace=False))
+    rows, cols = flat // nx, flat % nx
+    ye, xe = np.concatenate([[0], np.cumsum(data.chunks[2])]), np.concatenate([[0], np.cumsum(data.chunks[3])])
+    parts, order = [], []
+    for y0, y1 in zip(ye[:-1], ye[1:]):
+        for x0, x1 in zip(xe[:-1], xe[1:]):
+            sel = np.flatnonzero((rows >= y0) & (rows < y1) & (cols >= x0) & (cols < x1))
+            if sel.size == 0:
+                continue
+            func = functools.partial(_pick, rows=rows[sel] - y0, cols=cols[sel] - x0)
+            sub = data[:, :, y0:y1, x0:x1]
+            parts.append(sub.map_blocks(func, drop_axis=3, chunks=sub.chunks[:2] + ((sel.size,),), dtype=data.dtype))
+            order.append(sel)
+    values = np.empty(data.shape[:2] + (rows.size,), dtype=np.float64)
+    values[:, :, np.concatenate(order)] = da.concatenate(parts, axis=2).compute()
+    return values.transpose(0, 2, 1)
 
-    A fixed random sample of ``sample`` pixels (the same on every date, ``seed``) is read; for each date
-    the pixels valid on it and on the reference enter IR-MAD, those whose no-change probability exceeds
-    ``threshold`` are fitted per band by orthogonal regression.
 
-    Returns
-    -------
-    Dataset
-        On (time, band): ``gain``, ``offset``, ``gain_se``, ``offset_se``, ``r2``; on time: ``n``
-        (invariant pixels) and ``flag`` ('' when fine, else the reason: poor fit, gain far from 1, too
-        few pixels). The reference date has gain 1 and offset 0.
+def _sample_windows(pieces: list[np.ndarray], sample: int, seed: int) -> np.ndarray:
+    """A fixed random sample of the pixels of the windows read, (time, pixel, band)."""
+    flat = np.concatenate([p.reshape(p.shape[:2] + (-1,)) for p in pieces], axis=2)
+    keep = np.sort(np.random.default_rng(seed).choice(flat.shape[2], size=min(sample, flat.shape[2]), replace=False))
+    return flat[:, :, keep].transpose(0, 2, 1)
 
-    References
-    ----------
-    Canty, M. J. and Nielsen, A. A. (2008). doi:10.1016/j.rse.2007.07.013
-    """
-    ref = reference_date(cube, reference)
-    rows, cols = _sample_index(cube.sizes["y"], cube.sizes["x"], sample, seed)
-    picked = cube.transpose("time", "band", "y", "x").isel(
-        y=xr.DataArray(rows, dims="pixel"), x=xr.DataArray(cols, dims="pixel"))
-    values = np.asarray(picked.transpose("time", "pixel", "band").values, dtype=np.float64)
-    i_ref = int(np.flatnonzero(cube["time"].values == ref)[0])
+
+def _radiometry(cube, values, i_ref, ref, *, seed, threshold, min_pixels, min_r2, gain_tolerance) -> xr.Dataset:
     n_t, n_b = cube.sizes["time"], cube.sizes["band"]
     names = [str(b) for b in cube["band"].values]
     fields = {k: np.full((n_t, n_b), np.nan) for k in ("gain", "offset", "gain_se", "offset_se", "r2")}
@@ -201,8 +244,59 @@ def measure_radiometry(cube: xr.DataArray, *, reference, sample: int = 20000, se
     data["flag"] = ("time", flag.astype(str), {"long_name": "why the fit is doubtful ('' if fine)"})
     return xr.Dataset(data, coords={"time": cube["time"].values, "band": cube["band"].values},
                       attrs={"method": "IR-MAD invariant pixels + orthogonal regression (Canty & Nielsen 2008)",
-                             "reference": _date_label(ref), "sample": int(rows.size), "seed": seed,
+                             "reference": _date_label(ref), "sample": int(values.shape[1]), "seed": seed,
                              "threshold": threshold, "min_r2": min_r2, "gain_tolerance": gain_tolerance})
+
+
+def measure_radiometry(cube: xr.DataArray, *, reference, sample: int = 20000, seed: int = 0,
+                       threshold: float = 0.95, min_pixels: int = 50, min_r2: float = MIN_R2,
+                       gain_tolerance: float = GAIN_TOLERANCE) -> xr.Dataset:
+    """Gain and offset per date and band that map the date onto ``reference`` (pseudo-invariant pixels).
+
+    A fixed random sample of ``sample`` pixels over the scene (the same on every date, ``seed``) is read;
+    for each date the pixels valid on it and on the reference enter IR-MAD, those whose no-change
+    probability exceeds ``threshold`` are fitted per band by orthogonal regression
+    (:func:`unmix.comparability.fit_date`). :func:`measure_comparability` draws the sample from the
+    registration blocks instead, reading the stack once for both.
+
+    Returns
+    -------
+    Dataset
+        On (time, band): ``gain``, ``offset``, ``gain_se``, ``offset_se``, ``r2``; on time: ``n``
+        (invariant pixels) and ``flag`` ('' when fine, else the reason: poor fit, gain far from 1, too
+        few pixels). The reference date has gain 1 and offset 0.
+
+    References
+    ----------
+    Canty, M. J. and Nielsen, A. A. (2008). doi:10.1016/j.rse.2007.07.013
+    """
+    ref = reference_date(cube, reference)
+    values = _sample_scene(cube, sample, seed)
+    i_ref = int(np.flatnonzero(cube["time"].values == ref)[0])
+    return _radiometry(cube, values, i_ref, ref, seed=seed, threshold=threshold, min_pixels=min_pixels,
+                       min_r2=min_r2, gain_tolerance=gain_tolerance)
+
+
+def measure_comparability(cube: xr.DataArray, *, band, reference, n_blocks: int = 9, block: int = 256,
+                          upsample: int = 20, min_valid: float = 0.5, min_blocks: int = 3, sample: int = 20000,
+                          seed: int = 0, threshold: float = 0.95, min_pixels: int = 50, min_r2: float = MIN_R2,
+                          gain_tolerance: float = GAIN_TOLERANCE) -> tuple[xr.Dataset, xr.Dataset]:
+    """Registration and radiometry from one read of the blocks (all bands).
+
+    As :func:`measure_registration` and :func:`measure_radiometry`, but the radiometric sample is a fixed
+    random sample of the pixels of the registration blocks, so the stack is read once, only where the
+    blocks lie. Returns ``(shifts, fits)``.
+    """
+    k = _band_index(cube, band)
+    ref = reference_date(cube, reference)
+    i_ref = int(np.flatnonzero(cube["time"].values == ref)[0])
+    pieces = _read_windows(cube, block_layout(cube, n_blocks, block))
+    shifts = _registration(cube["time"].values, [p[:, k] for p in pieces], i_ref, band=band, block=block,
+                           upsample=upsample, min_valid=min_valid, min_blocks=min_blocks, ref=ref)
+    fits = _radiometry(cube, _sample_windows(pieces, sample, seed), i_ref, ref, seed=seed, threshold=threshold,
+                       min_pixels=min_pixels, min_r2=min_r2, gain_tolerance=gain_tolerance)
+    fits.attrs["sampled_from"] = "registration blocks"
+    return shifts, fits
 
 
 def _shift_chunk(block: np.ndarray, *, dy: np.ndarray, dx: np.ndarray, order: int,
