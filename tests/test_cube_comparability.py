@@ -11,8 +11,8 @@ import xarray as xr
 from scipy import ndimage
 
 from unmix.cube.comparability import (
-    correct_registration,
     block_layout,
+    correct_registration,
     measure_comparability,
     measure_radiometry,
     measure_registration,
