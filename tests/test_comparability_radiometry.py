@@ -6,7 +6,7 @@ import warnings
 
 import numpy as np
 import pytest
-from scipy import linalg
+from scipy import linalg, stats
 
 from unmix.comparability import fit_date, fit_flag, irmad, normalise, orthogonal_regression
 
@@ -40,7 +40,10 @@ def test_irmad_no_change_probability_separates_changed_pixels():
     assert np.median(res.no_change[moved]) < 1e-6
     assert np.median(res.no_change[~moved]) > 0.05
     assert (res.no_change[~moved] > 0.95).sum() > 20 * (res.no_change[moved] > 0.95).sum()
-    assert res.mad.shape == date.shape and res.iterations >= 2
+    assert res.mad.shape == date.shape and res.iterations >= 2 and res.converged
+    # the no-change probability is the chi-square survival function with n_bands degrees of freedom
+    np.testing.assert_allclose(res.no_change, stats.chi2.sf(res.chi2, 4), rtol=1e-10, atol=1e-300)  # scipy.stats
+    assert not irmad(date, ref, max_iter=1).converged  # one pass cannot show the correlations settled
 
 
 def test_first_iteration_canonical_correlations_match_whitened_svd():

@@ -19,7 +19,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import linalg, stats
+from scipy import linalg, special
 
 __all__ = ["MadResult", "RadiometricFit", "irmad", "invariant_pixels", "orthogonal_regression", "normalise",
            "fit_flag", "fit_date", "MIN_R2", "GAIN_TOLERANCE"]
@@ -41,6 +41,7 @@ class MadResult:
     no_change: np.ndarray
     rho: np.ndarray
     iterations: int
+    converged: bool = True
 
 
 @dataclass(frozen=True)
@@ -115,6 +116,7 @@ def irmad(x: np.ndarray, y: np.ndarray, *, max_iter: int = 50, tol: float = 1e-4
     z = np.concatenate([x, y], axis=1)
     w = np.ones(n)
     rho_old = np.full(p, np.inf)
+    converged = False
     for it in range(1, max_iter + 1):
         mean, s = _weighted_cov(z, w)
         s11, s22, s12 = s[:p, :p], s[p:, p:], s[:p, p:]
@@ -126,11 +128,12 @@ def irmad(x: np.ndarray, y: np.ndarray, *, max_iter: int = 50, tol: float = 1e-4
         mad = (x - mean[:p]) @ a - (y - mean[p:]) @ b
         sigma2 = np.maximum(2.0 * (1.0 - rho), 1e-12)  # variance of a MAD variate
         chi2 = (mad ** 2 / sigma2).sum(axis=1)
-        w = stats.chi2.sf(chi2, p)
+        w = special.chdtrc(p, chi2)  # chi-square survival function: P(chi2_p > chi2)
         if np.max(np.abs(rho - rho_old)) < tol:
+            converged = True
             break
         rho_old = rho
-    return MadResult(mad, chi2, w, rho, it)
+    return MadResult(mad, chi2, w, rho, it, converged)
 
 
 def invariant_pixels(x: np.ndarray, y: np.ndarray, *, threshold: float = 0.95, **irmad_kw) -> np.ndarray:
@@ -276,12 +279,16 @@ def fit_date(x: np.ndarray, y: np.ndarray, *, threshold: float = 0.95, min_pixel
     if x.shape[0] <= max(2 * p, min_pixels):
         return RadiometricFit(nan, nan, nan, nan, nan, int(x.shape[0]),
                               f"too few pixels valid on both dates: {x.shape[0]}, at least {max(2 * p, min_pixels) + 1} needed")
-    keep = invariant_pixels(x, y, threshold=threshold)
+    mad = irmad(x, y)
+    keep = mad.no_change > threshold
     n = int(keep.sum())
     if n < min_pixels:
         return RadiometricFit(nan, nan, nan, nan, nan, n,
                               f"too few invariant pixels: {n} of {x.shape[0]}, at least {min_pixels} needed")
     cols = np.array([orthogonal_regression(x[keep, k], y[keep, k])[:5] for k in range(p)]).T
     gain, offset, gain_se, offset_se, r2 = cols
-    return RadiometricFit(gain, offset, gain_se, offset_se, r2, n,
-                          fit_flag(gain, r2, min_r2=min_r2, gain_tolerance=gain_tolerance, band_names=band_names))
+    flag = fit_flag(gain, r2, min_r2=min_r2, gain_tolerance=gain_tolerance, band_names=band_names)
+    if not mad.converged:
+        note = f"invariant pixels uncertain: IR-MAD did not settle in {mad.iterations} iterations"
+        flag = f"{flag}; {note}" if flag else note
+    return RadiometricFit(gain, offset, gain_se, offset_se, r2, n, flag)

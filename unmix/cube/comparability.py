@@ -93,9 +93,9 @@ def block_layout(cube: xr.DataArray, n_blocks: int = 9, block: int = 256) -> lis
 
 
 def _read_windows(cube: xr.DataArray, windows) -> list[np.ndarray]:
-    """The windows of a (time, band, y, x) cube, computed together: (time, band, rows, cols) float64 each."""
+    """The windows of a (time, band, y, x) cube, computed together: (time, band, rows, cols) each."""
     cube = cube.transpose("time", "band", "y", "x")
-    return [np.asarray(p, dtype=np.float64) for p in dask.compute(*[cube.isel(y=wy, x=wx).data for wy, wx in windows])]
+    return [np.asarray(p) for p in dask.compute(*[cube.isel(y=wy, x=wx).data for wy, wx in windows])]
 
 
 def _band_index(cube: xr.DataArray, band) -> int:
@@ -215,9 +215,15 @@ def _sample_scene(cube: xr.DataArray, sample: int, seed: int) -> np.ndarray:
 
 def _sample_windows(pieces: list[np.ndarray], sample: int, seed: int) -> np.ndarray:
     """A fixed random sample of the pixels of the windows read, (time, pixel, band)."""
-    flat = np.concatenate([p.reshape(p.shape[:2] + (-1,)) for p in pieces], axis=2)
-    keep = np.sort(np.random.default_rng(seed).choice(flat.shape[2], size=min(sample, flat.shape[2]), replace=False))
-    return flat[:, :, keep].transpose(0, 2, 1)
+    sizes = [p.shape[2] * p.shape[3] for p in pieces]
+    total = int(sum(sizes))
+    keep = np.sort(np.random.default_rng(seed).choice(total, size=min(sample, total), replace=False))
+    starts = np.concatenate([[0], np.cumsum(sizes)])
+    parts = []
+    for p, a, b in zip(pieces, starts[:-1], starts[1:]):
+        idx = keep[(keep >= a) & (keep < b)] - a
+        parts.append(p.reshape(p.shape[:2] + (-1,))[:, :, idx])
+    return np.concatenate(parts, axis=2).astype(np.float64).transpose(0, 2, 1)
 
 
 def _radiometry(cube, values, i_ref, ref, *, seed, threshold, min_pixels, min_r2, gain_tolerance) -> xr.Dataset:
