@@ -98,3 +98,13 @@ def test_block_windows_spread_and_inside():
         assert 0 <= wy.start and wy.stop <= 1000 and 0 <= wx.start and wx.stop <= 700
         assert wy.stop - wy.start == 128 and wx.stop - wx.start == 128
     assert block_windows((50, 60), 9, 128) == [(slice(0, 50), slice(0, 60))]
+
+
+def test_kernel_package_imports_no_upper_layer():
+    import subprocess
+    import sys
+
+    code = ("import sys, unmix.comparability; "
+            "print(sorted(m for m in ('xarray', 'dask', 'rasterio', 'click', 'matplotlib') if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "[]"  # the layering rule of DEVELOPERS.md
