@@ -106,18 +106,23 @@ def _band_index(cube: xr.DataArray, band) -> int:
     return bands.index(str(band))
 
 
+def _date_shift(pieces, i_ref, t, upsample, min_valid, min_blocks):
+    found = [block_shift(p[i_ref], p[t], upsample=upsample, min_valid=min_valid) for p in pieces]
+    return combine_block_shifts(found, min_blocks=min_blocks)
+
+
 def _registration(times, pieces, i_ref, *, band, block, upsample, min_valid, min_blocks, ref) -> xr.Dataset:
     n_t = len(times)
     out = {k: np.full(n_t, np.nan) for k in ("shift_y", "shift_x", "shift_sd")}
     count = np.zeros(n_t, dtype=np.int64)
     reason = np.full(n_t, "", dtype=object)
-    for t in range(n_t):
-        if t == i_ref:
-            out["shift_y"][t] = out["shift_x"][t] = out["shift_sd"][t] = 0.0
-            count[t] = len(pieces)
-            continue
-        found = [block_shift(p[i_ref], p[t], upsample=upsample, min_valid=min_valid) for p in pieces]
-        est = combine_block_shifts(found, min_blocks=min_blocks)
+    others = [t for t in range(n_t) if t != i_ref]
+    # dates are independent: one task per date on dask's scheduler (FFTs release the GIL)
+    found = dask.compute(*[dask.delayed(_date_shift)(pieces, i_ref, t, upsample, min_valid, min_blocks)
+                           for t in others])
+    out["shift_y"][i_ref] = out["shift_x"][i_ref] = out["shift_sd"][i_ref] = 0.0
+    count[i_ref] = len(pieces)
+    for t, est in zip(others, found):
         out["shift_y"][t], out["shift_x"][t], out["shift_sd"][t] = est.dy, est.dx, est.sd
         count[t], reason[t] = est.n_blocks, est.reason
     attrs = {"units": "pixel"}
@@ -232,15 +237,15 @@ def _radiometry(cube, values, i_ref, ref, *, seed, threshold, min_pixels, min_r2
     fields = {k: np.full((n_t, n_b), np.nan) for k in ("gain", "offset", "gain_se", "offset_se", "r2")}
     n = np.zeros(n_t, dtype=np.int64)
     flag = np.full(n_t, "", dtype=object)
-    for t in range(n_t):
-        if t == i_ref:
-            fields["gain"][t], fields["offset"][t] = 1.0, 0.0
-            fields["gain_se"][t] = fields["offset_se"][t] = 0.0
-            fields["r2"][t] = 1.0
-            n[t] = int(np.isfinite(values[t]).all(axis=1).sum())
-            continue
-        fit = fit_date(values[t], values[i_ref], threshold=threshold, min_pixels=min_pixels, min_r2=min_r2,
-                       gain_tolerance=gain_tolerance, band_names=names)
+    fields["gain"][i_ref], fields["offset"][i_ref] = 1.0, 0.0
+    fields["gain_se"][i_ref] = fields["offset_se"][i_ref] = 0.0
+    fields["r2"][i_ref] = 1.0
+    n[i_ref] = int(np.isfinite(values[i_ref]).all(axis=1).sum())
+    others = [t for t in range(n_t) if t != i_ref]
+    fit_one = functools.partial(fit_date, threshold=threshold, min_pixels=min_pixels, min_r2=min_r2,
+                                gain_tolerance=gain_tolerance, band_names=names)
+    fitted = dask.compute(*[dask.delayed(fit_one)(values[t], values[i_ref]) for t in others])
+    for t, fit in zip(others, fitted):
         for k in fields:
             fields[k][t] = getattr(fit, k)
         n[t], flag[t] = fit.n, fit.flag
