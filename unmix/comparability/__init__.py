@@ -1,4 +1,20 @@
-"""Comparability of dates across a record: phenological windows and annual composites."""
+"""Comparability of the dates of a stack: co-registration, radiometric normalisation, phenological windows.
+
+Kernels on plain numpy arrays (numpy, scipy, scikit-image only): :mod:`.registration` measures the
+sub-pixel shift of a date against a reference by phase correlation over blocks and resamples it;
+:mod:`.radiometry` picks pseudo-invariant pixels by IR-MAD and fits gain and offset per band by
+orthogonal regression; :mod:`.phenology` selects dates by day-of-year window, year and range and
+reduces each year to a composite. The cube layer (:mod:`unmix.cube.comparability`) maps them over a stack.
+
+References
+----------
+Guizar-Sicairos, M., Thurman, S. T. and Fienup, J. R. (2008). doi:10.1364/OL.33.000156
+Townshend, J. R. G. et al. (1992). doi:10.1109/36.175340
+Nielsen, A. A. (2007). doi:10.1109/TIP.2006.888195
+Canty, M. J. and Nielsen, A. A. (2008). doi:10.1016/j.rse.2007.07.013
+"""
+
+from __future__ import annotations
 
 from .phenology import (
     DAYS_PER_YEAR,
@@ -15,8 +31,36 @@ from .phenology import (
     window_spread_days,
     year_groups,
 )
+from .radiometry import (
+    GAIN_TOLERANCE,
+    MIN_R2,
+    MadResult,
+    RadiometricFit,
+    fit_date,
+    fit_flag,
+    invariant_pixels,
+    irmad,
+    normalise,
+    orthogonal_regression,
+)
+from .registration import (
+    MAX_SHIFT,
+    WARN_SHIFT,
+    BlockShift,
+    ShiftEstimate,
+    block_shift,
+    block_shifts,
+    block_windows,
+    combine_block_shifts,
+    shift_image,
+)
 
 __all__ = [
+    "GAIN_TOLERANCE", "MIN_R2", "MadResult", "RadiometricFit", "fit_date", "fit_flag", "invariant_pixels",
+    "irmad", "normalise", "orthogonal_regression",
+    "MAX_SHIFT", "WARN_SHIFT", "BlockShift", "ShiftEstimate", "block_shift", "block_shifts", "block_windows",
+    "combine_block_shifts", "shift_image",
+
     "DAYS_PER_YEAR",
     "DateWindow",
     "check_date_count",
