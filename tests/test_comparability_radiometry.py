@@ -95,3 +95,18 @@ def test_normalise_applies_gain_and_offset_per_band():
     out = normalise(v, np.array([1.1, 0.9]), np.array([0.02, -0.01]))
     assert out.dtype == np.float32
     np.testing.assert_allclose(out, [[0.13, 0.17], [0.35, 0.35]], rtol=1e-6)  # by hand
+
+
+def test_linearly_dependent_bands_are_flagged_not_raised():
+    # noise-free mixtures of 3 endmembers in 6 bands have a rank-3 covariance: IR-MAD's canonical
+    # correlation has no solution (singular matrices); the date is flagged with the reason instead
+    import numpy as np
+
+    from unmix.comparability import fit_date
+
+    rng = np.random.default_rng(3)
+    M = rng.uniform(0.05, 0.5, (3, 6))
+    x = rng.dirichlet(np.ones(3), 500) @ M
+    y = rng.dirichlet(np.ones(3), 500) @ M
+    fit = fit_date(x, y)
+    assert np.isnan(fit.gain).all() and "linearly dependent" in fit.flag

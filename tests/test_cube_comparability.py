@@ -70,6 +70,8 @@ def test_failed_date_is_flagged_with_reason():
     assert "too few valid pixels" in str(res.reason.values[3])
     assert np.isnan(res.shift_y.values[3])
     assert registration_verdict(res).values[3] == "failed"
+    # valid share in the measured blocks: date 3 keeps only rows 0-5 of 128 (counted with numpy on the same blocks)
+    assert res.valid_share.values[3] < 0.1 and res.valid_share.values[0] == pytest.approx(1.0)
 
 
 def test_registration_reads_only_the_blocks():

@@ -279,7 +279,13 @@ def fit_date(x: np.ndarray, y: np.ndarray, *, threshold: float = 0.95, min_pixel
     if x.shape[0] <= max(2 * p, min_pixels):
         return RadiometricFit(nan, nan, nan, nan, nan, int(x.shape[0]),
                               f"too few pixels valid on both dates: {x.shape[0]}, at least {max(2 * p, min_pixels) + 1} needed")
-    mad = irmad(x, y)
+    try:
+        mad = irmad(x, y)
+    except np.linalg.LinAlgError:
+        # linearly dependent bands (e.g. noise-free mixtures of fewer endmembers than bands): no canonical
+        # variates, so no invariant pixels can be chosen; flagged, never passed as measured
+        return RadiometricFit(nan, nan, nan, nan, nan, int(x.shape[0]),
+                              "not measured: the bands are linearly dependent on these pixels (singular covariance)")
     keep = mad.no_change > threshold
     n = int(keep.sum())
     if n < min_pixels:

@@ -126,8 +126,11 @@ def _registration(times, pieces, i_ref, *, band, block, upsample, min_valid, min
         out["shift_y"][t], out["shift_x"][t], out["shift_sd"][t] = est.dy, est.dx, est.sd
         count[t], reason[t] = est.n_blocks, est.reason
     attrs = {"units": "pixel"}
+    valid = sum(np.isfinite(p).sum(axis=(1, 2)) for p in pieces) / max(1, sum(p[0].size for p in pieces))
     return xr.Dataset(
-        {"shift_y": ("time", out["shift_y"], {**attrs, "long_name": "row shift aligning the date to the reference"}),
+        {"valid_share": ("time", np.asarray(valid, np.float32),
+                         {"long_name": "share of valid pixels in the measured blocks", "units": "1"}),
+         "shift_y": ("time", out["shift_y"], {**attrs, "long_name": "row shift aligning the date to the reference"}),
          "shift_x": ("time", out["shift_x"], {**attrs, "long_name": "column shift aligning the date to the reference"}),
          "shift_sd": ("time", out["shift_sd"], {**attrs, "long_name": "spread of the shift between blocks "
                                                 "(median absolute deviation x 1.4826)"}),
