@@ -65,7 +65,8 @@ def main(argv: list[str] | None = None) -> None:
     measuring = t2 - t0
     print(f"measuring {measuring:.1f} s (largest |shift| {np.nanmax(np.abs(shifts.shift_x)):.2f} px, failed "
           f"{int((shifts.reason != '').sum())}; median invariant pixels {int(np.median(fits.n))}, flagged "
-          f"{int((fits.flag != '').sum())})")
+          f"{int((fits.flag != '').sum())}, of which IR-MAD did not settle "
+          f"{int(sum('did not settle' in str(f) for f in fits.flag.values))})")
 
     M = np.array(list(ENDMEMBERS.values()), dtype=np.float32)
     unmix_cube(cube.isel(time=[0], y=slice(0, 8), x=slice(0, 8)), M, names=list(ENDMEMBERS)).compute()  # compile

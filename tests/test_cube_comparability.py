@@ -163,3 +163,12 @@ def test_measure_comparability_matches_separate_measures():
     assert fits.gain.sel(time="2021-03-01").values == pytest.approx(1.0, abs=1e-3)  # identical date
     with pytest.raises(InputError, match="B9"):
         measure_comparability(cube, band="B9", reference=None)
+
+
+def test_measure_comparability_lazy_and_eager_cubes_agree():
+    cube = _cube(192, shifts=SHIFTS[:3], chunk=64)
+    lazy = measure_comparability(cube, band="B3", reference=None, block=64, upsample=20, sample=3000)
+    eager = measure_comparability(cube.compute(), band="B3", reference=None, block=64, upsample=20, sample=3000)
+    # the same blocks (the 3 x 3 layout of 64 px falls on the chunks of 64 px) and the same sampled pixels
+    for a, b in zip(lazy, eager):
+        xr.testing.assert_allclose(a, b)

@@ -221,8 +221,9 @@ def _sample_scene(cube: xr.DataArray, sample: int, seed: int) -> np.ndarray:
     return values.transpose(0, 2, 1)
 
 
-def _sample_windows(pieces: list[np.ndarray], sample: int, seed: int) -> np.ndarray:
-    """A fixed random sample of the pixels of the windows read, (time, pixel, band)."""
+def _sample_windows(pieces: list, sample: int, seed: int):
+    """A fixed random sample of the pixels of the windows, (time, pixel, band): numpy in, numpy out; dask
+    in, lazy out (each read task then keeps only its sampled pixels)."""
     sizes = [p.shape[2] * p.shape[3] for p in pieces]
     total = int(sum(sizes))
     keep = np.sort(np.random.default_rng(seed).choice(total, size=min(sample, total), replace=False))
@@ -231,7 +232,8 @@ def _sample_windows(pieces: list[np.ndarray], sample: int, seed: int) -> np.ndar
     for p, a, b in zip(pieces, starts[:-1], starts[1:]):
         idx = keep[(keep >= a) & (keep < b)] - a
         parts.append(p.reshape(p.shape[:2] + (-1,))[:, :, idx])
-    return np.concatenate(parts, axis=2).astype(np.float64).transpose(0, 2, 1)
+    xp = da if any(isinstance(p, da.Array) for p in parts) else np
+    return xp.concatenate(parts, axis=2).astype(np.float64).transpose(0, 2, 1)
 
 
 def _radiometry(cube, values, i_ref, ref, *, seed, threshold, min_pixels, min_r2, gain_tolerance) -> xr.Dataset:
@@ -299,15 +301,19 @@ def measure_comparability(cube: xr.DataArray, *, band, reference, n_blocks: int 
 
     As :func:`measure_registration` and :func:`measure_radiometry`, but the radiometric sample is a fixed
     random sample of the pixels of the registration blocks, so the stack is read once, only where the
-    blocks lie. Returns ``(shifts, fits)``.
+    blocks lie; memory holds the correlation band of the blocks and the sample. Returns ``(shifts, fits)``.
     """
     k = _band_index(cube, band)
     ref = reference_date(cube, reference)
     i_ref = int(np.flatnonzero(cube["time"].values == ref)[0])
-    pieces = _read_windows(cube, block_layout(cube, n_blocks, block))
-    shifts = _registration(cube["time"].values, [p[:, k] for p in pieces], i_ref, band=band, block=block,
+    full = cube.transpose("time", "band", "y", "x")
+    wins = [full.isel(y=wy, x=wx).data for wy, wx in block_layout(cube, n_blocks, block)]
+    # one read: the correlation band of each block and the sampled pixels; the blocks' other bands are
+    # dropped inside the read tasks, so memory holds one band of the blocks plus the sample
+    *bands, values = dask.compute(*[w[:, k] for w in wins], _sample_windows(wins, sample, seed))
+    shifts = _registration(cube["time"].values, [np.asarray(b) for b in bands], i_ref, band=band, block=block,
                            upsample=upsample, min_valid=min_valid, min_blocks=min_blocks, ref=ref)
-    fits = _radiometry(cube, _sample_windows(pieces, sample, seed), i_ref, ref, seed=seed, threshold=threshold,
+    fits = _radiometry(cube, np.asarray(values), i_ref, ref, seed=seed, threshold=threshold,
                        min_pixels=min_pixels, min_r2=min_r2, gain_tolerance=gain_tolerance)
     fits.attrs["sampled_from"] = "registration blocks"
     return shifts, fits
