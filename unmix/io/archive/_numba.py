@@ -31,11 +31,13 @@ def nested_mean(src, up, down, r_off, c_off, nodata, out, valid):  # pragma: no 
         n[:] = 0
         for fr in range(i * down, (i + 1) * down):
             row = src[ri[fr]]
+            if up == 1:  # fine pixels are the source pixels: contiguous reads
+                row = row[c_off:c_off + cols * down]
             for j in range(cols):  # no division in the inner loop: it cost 10x
                 acc = 0.0
                 cnt = 0
                 for fc in range(j * down, (j + 1) * down):
-                    v = row[ci[fc]]
+                    v = row[fc] if up == 1 else row[ci[fc]]
                     if v != nodata and v == v:  # neither the fill value nor NaN
                         acc += v
                         cnt += 1
