@@ -20,6 +20,8 @@ import xarray as xr
 from ...errors import InputError, StackReadError
 from ...sensors.roles import DEFAULT_ROLES, bands_for_roles
 from ..products.grid_mapping import grid_mapping_attrs, xy_attrs
+from ..stack.chunks import _dask_from_readers, _spatial_chunks
+from ..stack.geotiff import gdal_message
 from .grid import TargetGrid
 from .landsat import landsat_scenes
 from .quality import check_mask, default_mask
@@ -117,11 +119,7 @@ def open_archive(
         sensors.append(group[0].sensor)
         products.append(" + ".join(s.product_id for s in group))
 
-    from ..stack.chunks import _dask_from_readers
-
-    edge = int(chunks or _CHUNK)
-    ychunks = _split(grid.height, edge)
-    xchunks = _split(grid.width, edge)
+    ychunks, xchunks = _spatial_chunks(grid.height, grid.width, (1, 1), int(chunks or _CHUNK))
     data = _dask_from_readers(readers, len(roles), ychunks, xchunks)
     a, _, c, _, e, f = grid.transform
     x = c + a * (np.arange(grid.width) + 0.5)
@@ -167,8 +165,7 @@ def check_scene_files(scene: Scene, bands: Sequence[str]) -> None:
                     raise StackReadError(f"{scene.product_id}: {path} has no CRS; the product is damaged")
                 bounds, shape, res = tuple(src.bounds), (src.height, src.width), abs(src.transform.a)
         except RasterioIOError as exc:
-            cause = exc.__cause__ or exc.__context__
-            raise StackReadError(f"{scene.product_id}: cannot open {path} ({exc}{f'; {cause}' if cause else ''}); "
+            raise StackReadError(f"{scene.product_id}: cannot open {path} ({gdal_message(exc)}); "
                                  "the file is damaged or incomplete: download the product again") from None
         if extent is None:
             extent = (name, bounds, shape, res)
@@ -181,13 +178,6 @@ def check_scene_files(scene: Scene, bands: Sequence[str]) -> None:
                 f"{scene.product_id}: the {what} ({path}, {shape[0]} x {shape[1]} pixels of {res:g}) does not cover "
                 f"the same ground as band {ref_name} ({ref_shape[0]} x {ref_shape[1]} pixels of {ref_res:g}); the "
                 "product is inconsistent: download it again")
-
-
-def _split(total: int, step: int) -> tuple[int, ...]:
-    sizes = [step] * (total // step)
-    if total % step:
-        sizes.append(total % step)
-    return tuple(sizes)
 
 
 def _default_grid(scenes: list[Scene], roles: Sequence[str]) -> TargetGrid:

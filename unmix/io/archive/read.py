@@ -26,6 +26,7 @@ import numpy as np
 from ...errors import StackReadError
 from ..stack._tiff_blocks import BlockLayout, block_layout, read_window
 from ..stack.files import FileIdentity
+from ..stack.geotiff import gdal_message
 from ._numba import nested_mean, nested_share
 from .grid import TargetGrid
 from .quality import masked
@@ -79,10 +80,8 @@ class DateReader:
             except StackReadError:
                 raise
             except Exception as exc:  # rasterio/GDAL raise several types for damaged files
-                cause = exc.__cause__ or exc.__context__
-                detail = f"{exc}" + (f" ({cause})" if cause is not None and str(cause) not in str(exc) else "")
                 raise StackReadError(f"reading {scene.product_id} (date {self.date}), rows {row0}-{row1}, columns "
-                                     f"{col0}-{col1} failed: {detail}; the product may be damaged") from None
+                                     f"{col0}-{col1} failed: {gdal_message(exc)}; the product may be damaged") from None
             if len(self.scenes) == 1:  # nothing to mosaic
                 return values[np.newaxis]
             take = todo & ok
