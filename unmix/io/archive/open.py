@@ -12,7 +12,6 @@ from __future__ import annotations
 import os
 from collections.abc import Mapping, Sequence
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 import xarray as xr
@@ -25,7 +24,7 @@ from ..stack.geotiff import gdal_message
 from .grid import TargetGrid
 from .landsat import landsat_scenes
 from .quality import check_mask, default_mask
-from .read import DateReader, source_file
+from .read import DateReader, SourceFile, source_file
 from .scenes import Scene
 from .sentinel2 import sentinel2_scenes
 from .stac import is_stac, stac_scenes
@@ -99,14 +98,14 @@ def open_archive(
     masks = dict(masks or {})
     for kind in ("landsat-qa-pixel", "sentinel-2-scl"):
         masks[kind] = check_mask(kind, masks.get(kind, default_mask(kind)))
-    for s in scenes:
-        check_scene_files(s, bands_for_roles(s.sensor, roles))
-    grid = grid or _default_grid(scenes, roles)
+    files: dict[str, SourceFile] = {}
+    for s in scenes:  # every header read once: checks, default grid and readers share the records
+        files.update(check_scene_files(s, bands_for_roles(s.sensor, roles)))
+    grid = grid or _default_grid(scenes[0], roles, files)
 
     by_day: dict[np.datetime64, list[Scene]] = {}
     for s in scenes:
         by_day.setdefault(s.date, []).append(s)
-    files = {p: source_file(p) for sc in scenes for p in (*sc.bands.values(), sc.quality) if p}
     readers, sensors, products = [], [], []
     for day, group in sorted(by_day.items()):
         kinds = {s.sensor for s in group}
@@ -126,7 +125,7 @@ def open_archive(
     y = f + e * (np.arange(grid.height) + 0.5)
     x_attrs, y_attrs = xy_attrs(grid.crs_wkt)
     times = np.array(sorted(by_day), dtype="datetime64[D]").astype("datetime64[ns]")
-    files = sorted({p for s in scenes for p in (*s.bands.values(), s.quality, s.metadata) if p})
+    inputs = sorted({p for s in scenes for p in (*s.bands.values(), s.quality, s.metadata) if p})
     return xr.DataArray(
         data,
         dims=("time", "band", "y", "x"),
@@ -141,32 +140,33 @@ def open_archive(
         },
         name="reflectance",
         attrs={"long_name": "surface reflectance", "units": "1", "crs_wkt": grid.crs_wkt,
-               "transform": tuple(grid.transform), "grid_mapping": "spatial_ref", "input_files": tuple(files),
+               "transform": tuple(grid.transform), "grid_mapping": "spatial_ref", "input_files": tuple(inputs),
                "masks": "; ".join(f"{k}: {', '.join(v)}" for k, v in masks.items()), "mask_share": float(mask_share)},
     )
 
 
-def check_scene_files(scene: Scene, bands: Sequence[str]) -> None:
-    """Every band file and the quality band open, have a CRS, and cover the same ground (headers only).
+def check_scene_files(scene: Scene, bands: Sequence[str]) -> dict[str, SourceFile]:
+    """The headers of the scene's band files and quality band, checked: each opens, has a CRS, and covers
+    the same ground (headers only). Returns path -> :class:`.read.SourceFile`.
 
     Raises StackReadError naming the product and the file (a file that does not open, e.g. a damaged
     JPEG 2000, or a quality band whose extent differs from the bands').
     """
-    import rasterio
     from rasterio.errors import RasterioIOError
 
+    records: dict[str, SourceFile] = {}
     extent = None
     for name, path in [*((b, scene.bands[b]) for b in bands), ("quality", scene.quality)]:
         if path is None:
             continue
         try:
-            with rasterio.open(path) as src:
-                if src.crs is None:
-                    raise StackReadError(f"{scene.product_id}: {path} has no CRS; the product is damaged")
-                bounds, shape, res = tuple(src.bounds), (src.height, src.width), abs(src.transform.a)
+            record = records[path] = source_file(path)
         except RasterioIOError as exc:
             raise StackReadError(f"{scene.product_id}: cannot open {path} ({gdal_message(exc)}); "
                                  "the file is damaged or incomplete: download the product again") from None
+        if record.crs_wkt is None:
+            raise StackReadError(f"{scene.product_id}: {path} has no CRS; the product is damaged")
+        bounds, shape, res = record.bounds, (record.height, record.width), record.resolution
         if extent is None:
             extent = (name, bounds, shape, res)
             continue
@@ -178,19 +178,10 @@ def check_scene_files(scene: Scene, bands: Sequence[str]) -> None:
                 f"{scene.product_id}: the {what} ({path}, {shape[0]} x {shape[1]} pixels of {res:g}) does not cover "
                 f"the same ground as band {ref_name} ({ref_shape[0]} x {ref_shape[1]} pixels of {ref_res:g}); the "
                 "product is inconsistent: download it again")
+    return records
 
 
-def _default_grid(scenes: list[Scene], roles: Sequence[str]) -> TargetGrid:
+def _default_grid(first: Scene, roles: Sequence[str], files: dict[str, SourceFile]) -> TargetGrid:
     """The grid of the first scene's coarsest band among the roles (30 m Landsat, 20 m Sentinel-2)."""
-    import rasterio
-
-    first = scenes[0]
-    best: Any = None
-    for band in bands_for_roles(first.sensor, roles):
-        with rasterio.open(first.bands[band]) as src:
-            if src.crs is None:
-                raise StackReadError(f"{first.bands[band]} has no CRS; the product is damaged")
-            res = abs(src.transform.a)
-            if best is None or res > best[0]:
-                best = (res, TargetGrid(src.crs.to_wkt(), tuple(src.transform)[:6], src.width, src.height))
-    return best[1]
+    coarsest = max((files[first.bands[b]] for b in bands_for_roles(first.sensor, roles)), key=lambda r: r.resolution)
+    return TargetGrid(coarsest.crs_wkt, coarsest.transform, coarsest.width, coarsest.height)

@@ -17,6 +17,7 @@ and mosaics the scenes of the date: the first scene that has a valid value for a
 from __future__ import annotations
 
 import contextlib
+import functools
 import math
 import os
 from dataclasses import dataclass
@@ -37,22 +38,46 @@ __all__ = ["DateReader"]
 
 @dataclass(frozen=True)
 class SourceFile:
-    """How one file of a scene is read: its recorded version, and its block layout for direct reads."""
+    """One file of a scene as recorded when the archive was opened: its header, version and block layout."""
 
+    crs_wkt: str | None
+    transform: tuple  # 6 GDAL-order affine terms
+    width: int
+    height: int
     identity: FileIdentity | None  # None for files inside tar archives or on web servers
     layout: BlockLayout | None  # plain GeoTIFF layouts are decoded directly (tifffile); others by GDAL
 
+    @property
+    def resolution(self) -> float:
+        return abs(self.transform[0])
+
+    @property
+    def bounds(self) -> tuple[float, float, float, float]:
+        a, _, c, _, e, f = self.transform
+        xs, ys = (c, c + a * self.width), (f, f + e * self.height)
+        return min(xs), min(ys), max(xs), max(ys)
+
 
 def source_file(gdal_path: str) -> SourceFile:
-    """Record the version and the layout of a scene file (headers only)."""
+    """Read the header of a scene file once: georeferencing, version and layout (rasterio errors pass)."""
     import rasterio
 
-    if gdal_path.startswith("/vsi"):
-        return SourceFile(None, None)
-    with open(gdal_path, "rb") as fh, rasterio.open(gdal_path) as src:
-        identity = FileIdentity.of(os.fstat(fh.fileno()))
-        layout = block_layout(gdal_path, fh, src) if src.count == 1 else None
-    return SourceFile(identity, layout)
+    with rasterio.open(gdal_path) as src:
+        header = (src.crs.to_wkt() if src.crs is not None else None, tuple(src.transform)[:6], src.width, src.height)
+        if gdal_path.startswith("/vsi"):
+            return SourceFile(*header, None, None)
+        with open(gdal_path, "rb") as fh:
+            identity = FileIdentity.of(os.fstat(fh.fileno()))
+            layout = block_layout(gdal_path, fh, src) if src.count == 1 else None
+    return SourceFile(*header, identity, layout)
+
+
+@functools.lru_cache(maxsize=16)
+def _crs(wkt: str):
+    """The rasterio CRS of a WKT string, parsed once per process (compared for every band and window)."""
+    from rasterio.crs import CRS
+
+    return CRS.from_wkt(wkt)
 
 
 @dataclass(frozen=True)
@@ -72,11 +97,12 @@ class DateReader:
         h, w = row1 - row0, col1 - col0
         out = np.full((len(self.bands[0]), h, w), np.nan, dtype=np.float32)
         todo = np.ones((h, w), dtype=bool)  # pixels no scene has given yet
+        files = dict(self.files)
         for scene, bands, names in zip(self.scenes, self.bands, self.masks):
             if not todo.any():
                 break
             try:
-                values, ok = self._scene_window(scene, bands, names, window)
+                values, ok = self._scene_window(scene, bands, names, window, files)
             except StackReadError:
                 raise
             except Exception as exc:  # rasterio/GDAL raise several types for damaged files
@@ -89,7 +115,8 @@ class DateReader:
             todo &= ~ok
         return out[np.newaxis]
 
-    def _scene_window(self, scene: Scene, bands: tuple, names: tuple, window: tuple) -> tuple[np.ndarray, np.ndarray]:
+    def _scene_window(self, scene: Scene, bands: tuple, names: tuple, window: tuple,
+                      files: dict) -> tuple[np.ndarray, np.ndarray]:
         """Reflectance (band, y, x) of one scene on the window, and where it is valid (y, x)."""
         import rasterio
 
@@ -97,28 +124,24 @@ class DateReader:
         h, w = row1 - row0, col1 - col0
         values = np.empty((len(bands), h, w), dtype=np.float32)
         ok = np.ones((h, w), dtype=bool)
-        files = dict(self.files)
         for k, band in enumerate(bands):
             path = scene.bands[band]
             with _checked(path, files.get(path)), rasterio.open(path) as src:
-                direct = _Direct(path, files[path]) if files.get(path) and files[path].layout else None
-                raw, valid = _read_on_grid(src, self.grid, window, scene.nodata, direct)
+                raw, valid = _read_on_grid(src, self.grid, window, scene.nodata, _direct(path, files))
             values[k] = raw * np.float32(scene.scale[band]) + np.float32(scene.offset[band])
             ok &= valid
         if scene.quality is not None:
             path = scene.quality
             with _checked(path, files.get(path)), rasterio.open(path) as src:
-                direct = _Direct(path, files[path]) if files.get(path) and files[path].layout else None
-                ok &= ~_masked_on_grid(src, self.grid, window, scene.quality_kind, names, self.mask_share, direct)
+                ok &= ~_masked_on_grid(src, self.grid, window, scene.quality_kind, names, self.mask_share,
+                                       _direct(path, files))
         values[:, ~ok] = np.nan
         return values, ok
 
 
 def _on_grid(src, grid: TargetGrid) -> tuple[int, int] | None:
     """(row, col) offset of the grid's origin in ``src`` pixels when ``src`` lies on the grid, else None."""
-    from rasterio.crs import CRS
-
-    if src.crs is None or src.crs != CRS.from_wkt(grid.crs_wkt):
+    if src.crs is None or src.crs != _crs(grid.crs_wkt):
         return None
     a, b, c, d, e, f = tuple(src.transform)[:6]
     ga, gb, gc, gd, ge, gf = grid.transform
@@ -139,6 +162,12 @@ def _checked(path: str, recorded: SourceFile | None):
     recorded.identity.check(os.stat(path), path)
     yield
     recorded.identity.check(os.stat(path), path)
+
+
+def _direct(path: str, files: dict) -> _Direct | None:
+    """The direct block reader of ``path`` when its layout was found plain at opening, else None (GDAL)."""
+    recorded = files.get(path)
+    return _Direct(path, recorded) if recorded is not None and recorded.layout is not None else None
 
 
 @dataclass(frozen=True)
@@ -166,7 +195,6 @@ def _read_on_grid(src, grid: TargetGrid, window: tuple, nodata: float,
                   direct: _Direct | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Stored values of band 1 of ``src`` on the grid window as float32, and where they are not fill."""
     from affine import Affine
-    from rasterio.crs import CRS
     from rasterio.enums import Resampling
     from rasterio.vrt import WarpedVRT
     from rasterio.windows import Window
@@ -191,7 +219,7 @@ def _read_on_grid(src, grid: TargetGrid, window: tuple, nodata: float,
         nested_mean(part, nested[0], nested[1], r_off, c_off, part.dtype.type(nodata), mean, valid)
         return mean, valid
     finer = max(abs(src.transform.a), abs(src.transform.e)) < 0.99 * min(grid.resolution)
-    with WarpedVRT(src, crs=CRS.from_wkt(grid.crs_wkt), transform=Affine(*grid.transform), width=grid.width,
+    with WarpedVRT(src, crs=_crs(grid.crs_wkt), transform=Affine(*grid.transform), width=grid.width,
                    height=grid.height, resampling=Resampling.average if finer else Resampling.nearest,
                    src_nodata=nodata, nodata=nodata, dtype="float32") as vrt:  # no rounding of averages
         raw = vrt.read(1, window=Window(col0, row0, w, h), out_dtype="float32")
@@ -203,7 +231,6 @@ def _masked_on_grid(src, grid: TargetGrid, window: tuple, kind: str, names: tupl
                     direct: _Direct | None = None) -> np.ndarray:
     """True where more than ``share`` of a target pixel is covered by masked quality pixels (or no quality)."""
     from affine import Affine
-    from rasterio.crs import CRS
     from rasterio.enums import Resampling
     from rasterio.warp import reproject, transform_bounds
     from rasterio.windows import Window, from_bounds
@@ -226,7 +253,7 @@ def _masked_on_grid(src, grid: TargetGrid, window: tuple, kind: str, names: tupl
     dst_t = Affine(*grid.window_transform(row0, col0))
     left, top = dst_t @ (0, 0)
     right, bottom = dst_t @ (w, h)
-    bounds = transform_bounds(CRS.from_wkt(grid.crs_wkt), src.crs, min(left, right), min(top, bottom),
+    bounds = transform_bounds(_crs(grid.crs_wkt), src.crs, min(left, right), min(top, bottom),
                               max(left, right), max(top, bottom), densify_pts=21)
     fb = from_bounds(*bounds, transform=src.transform)
     c0, r0 = math.floor(fb.col_off) - 1, math.floor(fb.row_off) - 1  # a pixel of margin
@@ -238,7 +265,7 @@ def _masked_on_grid(src, grid: TargetGrid, window: tuple, kind: str, names: tupl
     cover = np.zeros((h, w), dtype=np.float32)
     src_t = src.transform @ Affine.translation(win.col_off, win.row_off)
     reproject(bad, cover, src_transform=src_t, src_crs=src.crs, dst_transform=dst_t,
-              dst_crs=CRS.from_wkt(grid.crs_wkt), resampling=Resampling.average)
+              dst_crs=_crs(grid.crs_wkt), resampling=Resampling.average)
     return cover > share if share > 0 else cover > 1e-6
 
 
@@ -253,9 +280,7 @@ def _nested_grid(src, grid: TargetGrid) -> tuple[int, int, int, int] | None:
     """
     from fractions import Fraction
 
-    from rasterio.crs import CRS
-
-    if src.crs is None or src.crs != CRS.from_wkt(grid.crs_wkt):
+    if src.crs is None or src.crs != _crs(grid.crs_wkt):
         return None
     a, b, c, d, e, f = tuple(src.transform)[:6]
     ga, gb, gc, gd, ge, gf = grid.transform
