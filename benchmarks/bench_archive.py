@@ -26,7 +26,6 @@ from __future__ import annotations
 
 import argparse
 import os
-import subprocess
 import sys
 import tempfile
 import time
@@ -37,6 +36,9 @@ import numpy as np
 HERE = Path(__file__).resolve().parent
 REPO = HERE.parent
 sys.path.insert(0, str(REPO))
+sys.path.insert(0, str(HERE))
+
+from bench_pipeline import run_measured  # noqa: E402
 
 NAMES = ("green_vegetation", "bright_soil", "shade")
 
@@ -104,25 +106,10 @@ def make_stacks(root: Path, size: int, n_dates: int) -> dict[str, Path]:
 
 
 def run(args: list[str]) -> tuple[float, float, str]:
-    import psutil
-
+    """One ``unmix fractions`` subprocess of this tree: (wall s, peak RSS bytes, summary)."""
     cmd = [sys.executable, "-m", "unmix.cli.main", "fractions", *args]
-    env = dict(os.environ, PYTHONPATH=str(REPO))
-    t0 = time.perf_counter()
-    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
-    ps = psutil.Process(proc.pid)
-    peak = 0
-    while proc.poll() is None:
-        try:
-            peak = max(peak, sum(p.memory_info().rss for p in (ps, *ps.children(recursive=True)) if p.is_running()))
-        except psutil.Error:
-            pass
-        time.sleep(0.05)
-    seconds = time.perf_counter() - t0
-    stdout, stderr = proc.communicate()
-    if proc.returncode:
-        raise SystemExit(f"{' '.join(cmd)} failed:\n{stderr}")
-    return seconds, peak, stdout.strip()
+    seconds, _, peak, summary = run_measured(cmd, env=dict(os.environ, PYTHONPATH=str(REPO)))
+    return seconds, peak, summary
 
 
 def main(argv: list[str] | None = None) -> None:

@@ -27,7 +27,6 @@ import shlex
 import subprocess
 import sys
 import tempfile
-import time
 from pathlib import Path
 
 import numpy as np
@@ -36,7 +35,7 @@ HERE = Path(__file__).resolve().parent
 REPO = HERE.parent
 sys.path.insert(0, str(HERE))
 
-from bench_pipeline import BANDS, make_stack, write_library  # noqa: E402
+from bench_pipeline import BANDS, make_stack, run_measured, write_library  # noqa: E402
 
 #: The revision before the hand-written codecs were replaced (start of that work).
 DEFAULT_BASELINE = "4518e44"
@@ -52,27 +51,11 @@ def build(rev: str, into: Path) -> Path:
 
 def run(tree: Path, folder: Path, library: Path, out: Path, extra: list[str]) -> tuple[float, float, str]:
     """One ``unmix fractions`` subprocess with ``tree`` first on the path: (wall s, peak RSS bytes, summary)."""
-    import psutil
-
-    env = dict(os.environ, PYTHONPATH=str(tree))
     cmd = [sys.executable, "-m", "unmix.cli.main", "fractions", str(folder), "--library", str(library),
            "--sensor", "landsat-8-oli", "--band-names", ",".join(BANDS), "--scale", "0.0001", "--out", str(out),
            "--overwrite", *extra]
-    t0 = time.perf_counter()
-    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env, cwd=tree)
-    ps = psutil.Process(proc.pid)
-    peak = 0
-    while proc.poll() is None:
-        try:
-            peak = max(peak, sum(p.memory_info().rss for p in (ps, *ps.children(recursive=True)) if p.is_running()))
-        except psutil.Error:
-            pass
-        time.sleep(0.05)
-    seconds = time.perf_counter() - t0
-    stdout, stderr = proc.communicate()
-    if proc.returncode != 0:
-        raise SystemExit(f"unmix fractions of {tree} failed ({proc.returncode}):\n{stderr}")
-    return seconds, peak, stdout.strip()
+    seconds, _, peak, summary = run_measured(cmd, env=dict(os.environ, PYTHONPATH=str(tree)), cwd=tree)
+    return seconds, peak, summary
 
 
 def main(argv: list[str] | None = None) -> None:

@@ -85,21 +85,18 @@ def write_library(path: Path) -> Path:
     return path
 
 
-def run_end_to_end(folder: Path, library: Path, out: Path, extra: list[str]) -> tuple[float, float, float, str]:
-    """Run the command in a subprocess.
+def run_measured(cmd: list[str], *, env: dict | None = None, cwd: Path | None = None) -> tuple[float, float, float, str]:
+    """Run ``cmd`` in a subprocess, polling the resident memory of it and its children with psutil.
 
-    Returns (wall seconds, CPU seconds of the process tree, peak RSS of the tree [bytes], summary).
+    Returns (wall seconds, CPU seconds of the process tree, peak RSS of the tree [bytes], stdout).
     """
     import resource
 
     import psutil
 
-    cmd = [sys.executable, "-m", "unmix.cli.main", "fractions", str(folder), "--library", str(library),
-           "--sensor", "landsat-8-oli", "--band-names", ",".join(BANDS), "--scale", "0.0001", "--out", str(out),
-           "--overwrite", *extra]
     before = resource.getrusage(resource.RUSAGE_CHILDREN)
     t0 = time.perf_counter()
-    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env, cwd=cwd)
     ps = psutil.Process(proc.pid)
     peak = 0
     while proc.poll() is None:
@@ -114,8 +111,19 @@ def run_end_to_end(folder: Path, library: Path, out: Path, extra: list[str]) -> 
     after = resource.getrusage(resource.RUSAGE_CHILDREN)
     cpu = (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
     if proc.returncode != 0:
-        raise SystemExit(f"unmix fractions failed ({proc.returncode}):\n{stderr}")
+        raise SystemExit(f"{' '.join(cmd[:4])} ... failed ({proc.returncode}):\n{stderr}")
     return seconds, cpu, peak, stdout.strip()
+
+
+def run_end_to_end(folder: Path, library: Path, out: Path, extra: list[str]) -> tuple[float, float, float, str]:
+    """Run the command in a subprocess.
+
+    Returns (wall seconds, CPU seconds of the process tree, peak RSS of the tree [bytes], summary).
+    """
+    cmd = [sys.executable, "-m", "unmix.cli.main", "fractions", str(folder), "--library", str(library),
+           "--sensor", "landsat-8-oli", "--band-names", ",".join(BANDS), "--scale", "0.0001", "--out", str(out),
+           "--overwrite", *extra]
+    return run_measured(cmd)
 
 
 def startup_seconds(repeats: int = 2) -> float:
