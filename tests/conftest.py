@@ -111,9 +111,12 @@ def write_geotiff():
 
 
 def _synthetic(n_dates, height, width, seed):
+    # One ground seen on every date (as in a real record: the date checks of `unmix fractions` compare dates),
+    # each date's cover moved a fifth of the way towards its own random mixture; still on the simplex.
     rng = np.random.default_rng(seed)
     M = np.array(list(ENDMEMBERS.values()), dtype=np.float64)
-    frac = rng.dirichlet(np.ones(len(M)), size=(n_dates, height, width))  # (t, y, x, p)
+    ground = rng.dirichlet(np.ones(len(M)), size=(1, height, width))
+    frac = 0.8 * ground + 0.2 * rng.dirichlet(np.ones(len(M)), size=(n_dates, height, width))  # (t, y, x, p)
     refl = frac @ M  # (t, y, x, b)
     return M, frac, refl
 

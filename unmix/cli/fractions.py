@@ -17,25 +17,15 @@ import click
 import numpy as np
 
 from ..errors import InputError
-from ..io.stack import Resampling
-from ..sensors.roles import DEFAULT_ROLES, bands_for_roles
+from ..sensors.roles import bands_for_roles
 from ..solvers import Constraint
 from ..spectra import on_bands
 from ._common import claim_products, echo_summary, out_dir_option, overwrite_option, split_names, writes_products
-from ._inputs import archive_options, expand_paths, find_archive, open_archive_input
+from ._comparability import check_dates, comparability_options, settings_from
+from ._inputs import _int_list, archive_options, check_input_options, expand_paths, open_input, stack_options
 from ._scheduler import dask_scheduler, scheduler_options
-from .sensors import RESPONSE_HELP, sensor_from_options
 
 __all__ = ["fractions", "mesma_bundles"]
-
-
-def _int_list(text: str | None, what: str) -> tuple[int, ...]:
-    if not text:
-        return ()
-    try:
-        return tuple(int(t) for t in text.split(",") if t.strip())
-    except ValueError:
-        raise InputError(f"{what} must be comma-separated whole numbers (bit positions), got {text!r}") from None
 
 
 def _valid_range(text: str) -> tuple[float, float] | None:
@@ -112,13 +102,6 @@ def _command_line(ctx: click.Context) -> str:
 @click.option("--library", "library", required=True, type=click.Path(path_type=Path),
               help="Spectral library CSV holding the endmember spectra (full resolution, or already resampled "
                    "to the sensor's bands).")
-@click.option("--sensor", default=None, metavar="ID",
-              help="Sensor of the stack, e.g. landsat-8-oli or sentinel-2a-msi (`unmix sensors` lists them).")
-@click.option("--response", "response", default=None, type=click.Path(dir_okay=False, path_type=Path),
-              metavar="FILE", help=RESPONSE_HELP)
-@click.option("--band-names", "band_names", default=None, metavar="B2,B3,...",
-              help="Sensor band names of the files' bands, in file order. Default: the band descriptions of the "
-                   "files if every band has one, else all bands of the sensor.")
 @click.option("--endmembers", "endmember_names", default=None, metavar="NAME,...",
               help="Library spectra to use as endmembers, comma-separated. Default: all spectra.")
 @click.option("--constraint", type=click.Choice([c.value for c in Constraint]), default=Constraint.FCLS.value,
@@ -126,25 +109,6 @@ def _command_line(ctx: click.Context) -> str:
               help="Constraint on the fractions: fcls = non-negative and summing to one.")
 @out_dir_option(".")
 @overwrite_option
-@click.option("--align", is_flag=True, default=False,
-              help="Warp dates on another grid (CRS, pixel grid or size) onto the first date's grid instead "
-                   "of stopping. A NetCDF cube has one grid: nothing to warp.")
-@click.option("--resampling", type=click.Choice([r.value for r in Resampling]),
-              default="nearest", show_default=True, help="Resampling used by --align.")
-@click.option("--dates", "dates", type=click.Path(path_type=Path), default=None, metavar="CSV",
-              help="CSV with columns file,date (YYYY-MM-DD). Default: dates read from the file names "
-                   "(YYYY-MM-DD, YYYYMMDD or YYYYDDD). Not for a NetCDF cube, whose time coordinate gives them.")
-@click.option("--scale", type=float, default=None,
-              help="Reflectance = stored value x SCALE + OFFSET (e.g. 0.0001 for int16 reflectance). "
-                   "Default: the files' own scale, else 1.")
-@click.option("--offset", type=float, default=None, help="See --scale. Default: the files' own offset, else 0.")
-@click.option("--qa", "qa", default=None, metavar="BAND|PATH",
-              help="Quality mask: a band of the files (number from 1, or its description) or a folder of "
-                   "per-date mask files with the date in their names; for a NetCDF cube, a band name or a "
-                   "(time, y, x) variable.")
-@click.option("--qa-bits", "qa_bits", default=None, metavar="1,3,...",
-              help="QA bit positions (0 = least significant) that mark a pixel invalid. Default with --qa: "
-                   "any non-zero QA value.")
 @click.option("--valid-range", "valid_range", default="-0.5,2", show_default=True, metavar="LOW,HIGH",
               help="Plausible reflectance after scaling: a pixel with any band outside it is no data on that date "
                    "and counted (an undeclared fill value such as 1e30, or a wrong scale). 'none' turns it off.")
@@ -160,10 +124,9 @@ def _command_line(ctx: click.Context) -> str:
 @click.option("--compress-level", "compress_level", type=click.IntRange(0, 9), default=1, show_default=True,
               help="zlib level of the NetCDF product; 0 = uncompressed (fastest, largest).")
 @scheduler_options
-@click.option("--chunk-size", "chunk_size", type=click.IntRange(min=16), default=None, metavar="N",
-              help="Chunk edge [pixels], rounded up to whole file tiles. Default: about 1024, following the "
-                   "files' tiles. Memory grows with its square.")
+@stack_options
 @archive_options
+@comparability_options
 @click.pass_context
 @writes_products
 def fractions(ctx: click.Context, stack: tuple[str, ...], library: Path, sensor: str | None, response: Path | None,
@@ -173,7 +136,7 @@ def fractions(ctx: click.Context, stack: tuple[str, ...], library: Path, sensor:
               qa_bits: str | None, valid_range: str, mesma: bool, max_rmse: float, cog: bool, compress_level: int, workers: int | None,
               scheduler: str | None, chunk_size: int | None, roles: str | None, grid_file: Path | None,
               grid_crs: str | None, grid_res: float | None, grid_bounds: str | None, mask: str | None,
-              mask_share: float, band_adjustment: bool) -> None:
+              mask_share: float, band_adjustment: bool, **checks: Any) -> None:
     """Fractions of every endmember in every pixel and date of STACK.
 
     STACK is a folder of delivered Level-2 products (Landsat Collection 2 scene folders or tar
@@ -189,22 +152,18 @@ def fractions(ctx: click.Context, stack: tuple[str, ...], library: Path, sensor:
     out = Path(out)
     nc_path = out / "fractions.nc"
     # claimed before any input is read: a busy, existing or unwritable product stops the run here
-    products = claim_products([nc_path], overwrite, command=_command_line(ctx))
+    ledger_path = out / "dates.csv"
+    products = claim_products([nc_path, ledger_path], overwrite, command=_command_line(ctx))
+    check_settings = settings_from(checks)
 
     from ..cube.fractions import unmix_cube
     from ..io.library import read_library
     from ..io.products import open_product, provenance_attrs, write_cog, write_netcdf
-    from ..io.stack import open_stack
 
     paths = expand_paths(stack)
-    role_list = split_names(roles, "--roles") or list(DEFAULT_ROLES)
-    scenes = find_archive(paths, role_list)
-    bands = split_names(band_names, "--band-names")
     wanted = split_names(endmember_names, "--endmembers")
-    bits = _int_list(qa_bits, "--qa-bits")
     vrange = _valid_range(valid_range)
-    if qa_bits and qa is None:
-        raise InputError("--qa-bits needs --qa (the QA band or the folder of mask files)")
+    check_input_options(ctx.params)
 
     lib = read_library(library)
     if wanted is not None:
@@ -217,40 +176,19 @@ def fractions(ctx: click.Context, stack: tuple[str, ...], library: Path, sensor:
     cog_paths = [out / f"fractions_{n}.tif" for n in names] if cog else []
     products.claim_more(cog_paths)
 
+    cube, sensor_obj, stack_bands = open_input(paths, ctx.params)
+    scenes = sensor_obj is None
     if scenes:
-        given = [flag for flag, value in (("--sensor", sensor), ("--response", response), ("--band-names", band_names),
-                                          ("--dates", dates), ("--scale", scale), ("--offset", offset), ("--qa", qa),
-                                          ("--align", align)) if value]
-        if given:
-            raise InputError(f"{', '.join(given)}: not needed for delivered products (sensor, bands, dates, scaling and "
-                             "quality come from the products); drop them, or use --roles / --mask / --grid")
-        cube = open_archive_input(scenes, roles=role_list, grid_file=grid_file, grid_crs=grid_crs, grid_res=grid_res,
-                                  grid_bounds=grid_bounds, mask=mask, mask_share=mask_share, chunk_size=chunk_size,
-                                  band_adjustment=band_adjustment)
-        stack_bands = role_list
         sensor_ids = list(dict.fromkeys(str(v) for v in cube["sensor"].values))
-        by_sensor = {s: np.asarray(on_bands(lib, s, bands_for_roles(s, role_list), where=f"library {library}").spectra)
+        by_sensor = {s: np.asarray(on_bands(lib, s, bands_for_roles(s, stack_bands), where=f"library {library}").spectra)
                      for s in sensor_ids}
         M: Any = by_sensor if len(sensor_ids) > 1 else by_sensor[sensor_ids[0]]
         sensor_label = ", ".join(sensor_ids)
     else:
-        extra = [flag for flag, value in (("--roles", roles), ("--grid", grid_file), ("--crs", grid_crs),
-                                          ("--resolution", grid_res), ("--bounds", grid_bounds), ("--mask", mask),
-                                          ("--mask-share", mask_share), ("--band-adjustment", band_adjustment)) if value]
-        if extra:
-            raise InputError(f"{', '.join(extra)}: only for delivered Level-2 products (Landsat Collection 2, "
-                             f"Sentinel-2 L2A), and none was found in {', '.join(map(str, paths))}")
-        sensor_obj = sensor_from_options(sensor, response)
-        qa_arg: Any = qa
-        if qa is not None and qa.strip().isdigit() and not Path(qa).exists():
-            qa_arg = int(qa)
-        cube = open_stack(
-            paths[0] if len(paths) == 1 else paths, sensor=sensor_obj, band_names=bands, dates=dates, scale=scale,
-            offset=offset, qa=qa_arg, qa_bits=bits, align=align, resampling=resampling, chunks=chunk_size,
-        )
-        stack_bands = [str(b) for b in cube["band"].values]
         M = np.asarray(on_bands(lib, sensor_obj, stack_bands, where=f"library {library}").spectra)
         sensor_label = sensor_obj.id
+    all_dates = cube["time"].values
+    cube, ledger, verdicts = check_dates(cube, check_settings)
     if mesma and isinstance(M, dict):
         raise InputError(f"--mesma on a record that switches sensor ({sensor_label}) is not available; run it on "
                          "each sensor's dates separately, or leave --mesma out")
@@ -268,16 +206,21 @@ def fractions(ctx: click.Context, stack: tuple[str, ...], library: Path, sensor:
     command = _command_line(ctx)
     parameters = {
         "sensor": sensor_label, "bands": stack_bands, "endmembers": names, "constraint": constraint,
-        "library": str(library), "scale": scale, "offset": offset, "qa": qa, "qa_bits": list(bits),
+        "library": str(library), "scale": scale, "offset": offset, "qa": qa, "qa_bits": list(_int_list(qa_bits, "--qa-bits")),
         "align": align, "resampling": resampling if align else None, "dates": str(dates) if dates else None,
         "chunk_size": chunk_size, "valid_range": list(vrange) if vrange else None, "mesma": mesma, "max_rmse": max_rmse if mesma else None,
         "library_spectra": list(lib.names),
     }
     if scenes:
-        parameters.update(products=[str(v) for v in cube["product"].values], roles=role_list,
+        parameters.update(products=[str(v) for v in cube["product"].values], roles=stack_bands,
                           masks=cube.attrs.get("masks"), mask_share=mask_share,
                           band_adjustments=cube.attrs.get("band_adjustments") if band_adjustment else None)
     input_files = list(cube.attrs.get("input_files", ())) + [str(library)]
+    from ..io.ledger import ledger_variables, write_ledger_csv
+
+    ds = ds.merge(ledger_variables(ledger, dim="ledger_time"))
+    parameters["date_checks"] = {k: (v.describe() if hasattr(v, "describe") else v)
+                                 for k, v in vars(check_settings).items()}
 
     from ..cube.summary import finite_mean
 
@@ -305,9 +248,13 @@ def fractions(ctx: click.Context, stack: tuple[str, ...], library: Path, sensor:
             da_.attrs.update(long_name=f"fraction of {name}")
             write_cog(da_, path, overwrite=overwrite, tags={**tags, "endmember": name}, products=products)
         product.close()
-    products.commit()  # fractions.nc and its COGs appear together, or none of them
+    write_ledger_csv(ledger, ledger_path, overwrite=overwrite, products=products)
+    products.commit()  # fractions.nc, the ledger and the COGs appear together, or none of them
 
     warn_implausible(cube["time"].values, stats.get("implausible"), vrange)
+    for line in verdicts:
+        echo_summary(f"  {line}")
+    used = int(ledger["used"].values.sum())
     n_t, n_y, n_x = cube.sizes["time"], cube.sizes["y"], cube.sizes["x"]
     pixels = n_y * n_x
     mean_rmse = stats.get("mean_rmse", float("nan"))
@@ -315,6 +262,7 @@ def fractions(ctx: click.Context, stack: tuple[str, ...], library: Path, sensor:
     extra = f" (+{len(cog_paths)} COG)" if cog_paths else ""
     echo_summary(
         f"fractions: {pixels} pixels x {n_t} dates x {len(names)} endmembers ({'MESMA, ' if mesma else ''}{constraint}); "
-        f"mean rmse {mean_rmse:.4f}; valid {100 * share:.1f} % of pixel-dates; "
+        f"mean rmse {mean_rmse:.4f}; valid {100 * share:.1f} % of pixel-dates; {used} of {len(all_dates)} dates used "
+        f"(ledger {ledger_path.name}); "
         f"-> {nc_path}{extra}; {time.perf_counter() - started:.1f} s on {mode}"
     )

@@ -50,6 +50,7 @@ _COMMANDS = {
     "library": ".library:library",
     "report": ".report:report",
     "sensors": ".sensors:sensors",
+    "survey": ".survey:survey",
     "trends": ".trends:trends",
 }
 

@@ -9,7 +9,7 @@ import click
 from ._common import claim_products, echo_summary, overwrite_option, writes_products
 
 #: Tables written beside report.html (the names of build_report's tables).
-_TABLES = ["trajectory_areas", "rule_areas"]
+_TABLES = ["trajectory_areas", "rule_areas", "dates"]
 
 
 @click.command("report")

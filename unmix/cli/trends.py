@@ -81,6 +81,10 @@ def trends(fractions: Path, out: Path, fdr_q: float, min_slope: float, min_step:
         season_scheme=SeasonScheme(season_scheme),
         rules=rules,
     )
+    # the date ledger of the fractions (every date, used or not, and why) travels with the trends
+    ledger_vars = [k for k, v in ds.data_vars.items() if "ledger_name" in v.attrs]
+    if ledger_vars:
+        result = result.assign({k: ds[k].load() for k in ledger_vars})
     parameters = {
         "fdr_q": fdr_q,
         "min_slope": min_slope,

@@ -70,6 +70,18 @@ def _weighted_cov(z: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np.ndarray]
     return mean, np.einsum("ni,nj->ij", d * w[:, None], d) / sw
 
 
+def _check_conditioning(*covariances: np.ndarray, rcond: float = 1e-10) -> None:
+    """Raise LinAlgError when a band covariance is (numerically) singular: linearly dependent bands, such as
+    noise-free mixtures of fewer endmembers than bands, have no canonical variates."""
+    for c in covariances:
+        d = np.sqrt(np.clip(np.diag(c), 0.0, None))
+        if not np.all(np.isfinite(c)) or np.any(d == 0):
+            raise np.linalg.LinAlgError("a band is constant or not finite on these pixels")
+        eig = np.linalg.eigvalsh(c / np.outer(d, d))  # of the correlation matrix: scale-free
+        if eig[0] < rcond * eig[-1]:
+            raise np.linalg.LinAlgError("linearly dependent bands (singular covariance)")
+
+
 def irmad(x: np.ndarray, y: np.ndarray, *, max_iter: int = 50, tol: float = 1e-4) -> MadResult:
     """Iteratively re-weighted MAD transformation of two dates.
 
@@ -122,6 +134,7 @@ def irmad(x: np.ndarray, y: np.ndarray, *, max_iter: int = 50, tol: float = 1e-4
     for it in range(1, max_iter + 1):
         mean, s = _weighted_cov(z, w)
         s11, s22, s12 = s[:p, :p], s[p:, p:], s[:p, p:]
+        _check_conditioning(s11, s22)
         s22_inv_s21 = linalg.solve(s22, s12.T, assume_a="pos")
         # s12 s22^-1 s21 a = rho^2 s11 a; eigh normalises a' s11 a = 1 (unit variance of u = a'x)
         rho2, a = linalg.eigh(s12 @ s22_inv_s21, s11)

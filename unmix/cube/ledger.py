@@ -27,7 +27,7 @@ LEDGER_VARIABLES: dict[str, dict[str, str]] = {
     "shift_x": {"long_name": "geometric shift of the date along x", "units": "pixel"},
     "shift_sd": {"long_name": "standard uncertainty of the geometric shift", "units": "pixel"},
     "used": {"long_name": "date used in the products"},
-    "reason": {"long_name": "why the date was not used (empty: used)"},
+    "reason": {"long_name": "why the date was not used, or what was flagged on a used date (empty: used, nothing flagged)"},
 }
 #: Variables on (time, band): name -> CF attributes of the per-band radiometric fit (reference = gain * date + offset).
 LEDGER_BAND_VARIABLES: dict[str, dict[str, str]] = {

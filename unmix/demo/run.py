@@ -27,14 +27,22 @@ from ..report import build_report
 from ..sensors.roles import DEFAULT_ROLES, bands_for_roles
 from ..spectra import resample
 from .scenario import ENDMEMBERS, ZONES, make_scenario
-from .score import fraction_errors, trajectory_hits
+from .score import date_checks, fraction_errors, trajectory_hits
 
-__all__ = ["DemoResult", "RULES", "SENSORS", "SWITCH_DATE", "run_demo", "sensor_of_dates"]
+__all__ = ["DemoResult", "RULES", "SENSORS", "SWITCH_DATE", "inject_faults", "run_demo", "sensor_of_dates"]
 
 #: The record's sensors: a TM-like sensor, then an OLI-like one (invented record, real band responses).
 SENSORS = ("landsat-5-tm", "landsat-8-oli")
 #: Dates from this day on are observed by the second sensor.
 SWITCH_DATE = np.datetime64("2012-07-01")
+#: Faults built into the invented record, for the date checks to find (see :func:`inject_faults`): a date
+#: acquired out of season (the wet season), a date shifted by about 1.5 pixels, and a date whose near
+#: infrared reads 10 % high (as after a calibration change).
+OFF_SEASON_DATE = np.datetime64("2010-01-20")
+SHIFTED = {"at": 0.45, "shift": (1.2, -0.9)}
+BRIGHT = {"at": 0.65, "band": "nir", "gain": 1.1}
+#: Day-of-year window the demo keeps (the dry season of the record, see scenario.DRY_SEASON_DOY).
+DOY_WINDOW = "215-335"
 RULES = """\
 # Modification rules of the invented Marrow Creek demo (see 'unmix trends --help' for the syntax).
 desertification = green_vegetation:gradual_decrease & sand:gradual_increase
@@ -51,6 +59,7 @@ class DemoResult:
     commands: list[str]
     errors: pd.DataFrame
     hits: pd.DataFrame
+    checks: pd.DataFrame
     rule_areas: pd.DataFrame
     pivot_disc_ha: float
     report: Path
@@ -61,10 +70,21 @@ def sensor_of_dates(dates: np.ndarray) -> list[str]:
     return [SENSORS[int(np.datetime64(d, "D") >= SWITCH_DATE)] for d in dates]
 
 
-def _run(args: list[str]) -> None:
-    from ..cli.main import cli
+def _run(args: list[str], echo=print) -> None:
+    """Run one command; its warnings (the date checks flag the record's built-in faults) are shown as lines."""
+    import warnings
 
-    cli.main(args=args, prog_name="unmix", standalone_mode=False)
+    from ..cli.main import cli
+    from ..errors import UnmixWarning
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", UnmixWarning)
+        cli.main(args=args, prog_name="unmix", standalone_mode=False)
+    for w in caught:
+        if issubclass(w.category, UnmixWarning):
+            echo(f"warning: {w.message}")
+        else:
+            warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
 
 
 def run_demo(out: str | Path, *, size: int = 160, n_time: int = 40, seed: int = 7, overwrite: bool = False,
@@ -89,7 +109,7 @@ def run_demo(out: str | Path, *, size: int = 160, n_time: int = 40, seed: int = 
     out = Path(out)
     stack_dir = out / "stack"
     targets = [out / "truth.nc", out / "fractions.nc", out / "trends.nc", out / "rules.txt",
-               *report_paths(out / "report", ["trajectory_areas", "rule_areas"])]
+               *report_paths(out / "report", ["trajectory_areas", "rule_areas", "dates"])]
     existing = [str(p) for p in targets if p.exists()]
     if (stack_dir.exists() and any(stack_dir.iterdir())) and not overwrite:
         existing.append(str(stack_dir))
@@ -100,9 +120,12 @@ def run_demo(out: str | Path, *, size: int = 160, n_time: int = 40, seed: int = 
     library_path = shipped_library_path("demo_library")
     library = read_library(library_path).select(list(ENDMEMBERS))
     spectra = {s: resample(library, s, bands_for_roles(s, DEFAULT_ROLES)).spectra for s in SENSORS}
-    probe = make_scenario(spectra[SENSORS[0]], size=8, n_time=n_time, seed=seed)  # the dates only
+    extra = [OFF_SEASON_DATE]
+    probe = make_scenario(spectra[SENSORS[0]], size=8, n_time=n_time, seed=seed, extra_dates=extra)  # the dates only
     sensors = sensor_of_dates(probe.dates)
-    scenario = make_scenario(np.stack([spectra[s] for s in sensors]), size=size, n_time=n_time, seed=seed)
+    scenario = make_scenario(np.stack([spectra[s] for s in sensors]), size=size, n_time=n_time, seed=seed,
+                             extra_dates=extra)
+    observed, faults = inject_faults(scenario.reflectance, scenario.dates, list(DEFAULT_ROLES))
     counts = {s: sensors.count(s) for s in SENSORS}
     echo(f"Invented scene 'Marrow Creek': {size} x {size} pixels of 30 m, {len(scenario.dates)} dates "
          f"{scenario.dates[0]} .. {scenario.dates[-1]}; " + ", then ".join(f"{n} dates of {s}" for s, n in counts.items())
@@ -113,7 +136,7 @@ def run_demo(out: str | Path, *, size: int = 160, n_time: int = 40, seed: int = 
 
         for old in stack_dir.glob("L[CT]0[58]_L2SP_*"):
             shutil.rmtree(old)
-    write_landsat_l2(scenario.reflectance, scenario.dates, sensors, stack_dir, crs=f"EPSG:{scenario.crs_epsg}",
+    write_landsat_l2(observed, scenario.dates, sensors, stack_dir, crs=f"EPSG:{scenario.crs_epsg}",
                      transform=scenario.transform, overwrite=overwrite)
     _write_truth(scenario, out / "truth.nc", overwrite)
     rules_path = out / "rules.txt"
@@ -124,20 +147,26 @@ def run_demo(out: str | Path, *, size: int = 160, n_time: int = 40, seed: int = 
     flag = ["--overwrite"] if overwrite else []
     commands = [
         ["fractions", str(stack_dir), "--library", str(library_path), "--endmembers", ",".join(ENDMEMBERS),
-         "--out", str(out), *flag],
+         "--doy-window", DOY_WINDOW, "--out", str(out), *flag],
         ["trends", str(out / "fractions.nc"), "--rules", str(rules_path), "--out", str(out), *flag],
     ]
     for args in commands:
         echo("$ unmix " + shlex.join(args))
-        _run(args)
+        _run(args, echo)
 
     fractions = open_product(out / "fractions.nc").load()
     trends = open_product(out / "trends.nc").load()
     errors = fraction_errors(scenario, fractions)
     hits = trajectory_hits(scenario, trends)
+    from ..io.ledger import ledger_from_product
+
+    checks = date_checks(faults, ledger_from_product(fractions))
     page, tables = build_report(
         fractions, trends, title="Marrow Creek (invented demo scene): fractions and trends",
         extra_sections=[
+            ("Faults built into the record", "<p>Three dates of the invented record carry faults on purpose; "
+             "the date checks of <code>unmix fractions</code> should find each.</p>"
+             + checks.to_html(index=False, border=0)),
             ("Recovered against the invented truth",
              "<p>This scene is invented; its true fractions and zones are known, so the tool's "
              "estimates can be scored.</p>" + errors.to_html(index=False, float_format="%.4f", border=0)
@@ -149,8 +178,45 @@ def run_demo(out: str | Path, *, size: int = 160, n_time: int = 40, seed: int = 
     fractions.close()
     trends.close()
     return DemoResult(out=out, commands=["unmix " + shlex.join(a) for a in commands], errors=errors,
-                      hits=hits, rule_areas=tables["rule_areas"], pivot_disc_ha=scenario.pivot_disc_ha,
+                      hits=hits, checks=checks, rule_areas=tables["rule_areas"], pivot_disc_ha=scenario.pivot_disc_ha,
                       report=written[0])
+
+
+def _date_at(dates: np.ndarray, share: float) -> int:
+    """The in-season date (not the off-season one) at ``share`` of the way through the record."""
+    candidates = np.flatnonzero(dates.astype("datetime64[D]") != OFF_SEASON_DATE)
+    return int(candidates[min(int(round(share * (candidates.size - 1))), candidates.size - 1)])
+
+
+def inject_faults(reflectance: np.ndarray, dates: np.ndarray, bands: list[str]) -> tuple[np.ndarray, list[dict]]:
+    """The observed record: the scenario's reflectance with the faults the date checks must find.
+
+    One date is shifted by :data:`SHIFTED` pixels (cubic spline resampling; clouds move with the ground),
+    one date's band reads :data:`BRIGHT` times too high. The off-season date is already in the record
+    (:data:`OFF_SEASON_DATE`). Returns the observed reflectance and one record per fault.
+    """
+    from scipy import ndimage
+
+    observed = reflectance.copy()
+    i = _date_at(dates, SHIFTED["at"])
+    dy, dx = SHIFTED["shift"]
+    for b in range(observed.shape[1]):
+        img = observed[i, b]
+        valid = np.isfinite(img)
+        filled = np.where(valid, img, np.nanmean(img))
+        moved = ndimage.shift(filled, (dy, dx), order=3, mode="nearest")
+        moved_valid = ndimage.shift(valid.astype(np.float32), (dy, dx), order=1, mode="nearest") > 0.5
+        observed[i, b] = np.where(moved_valid, moved, np.nan)
+    j = _date_at(dates, BRIGHT["at"])
+    observed[j, bands.index(BRIGHT["band"])] *= BRIGHT["gain"]
+    faults = [] if OFF_SEASON_DATE not in dates.astype("datetime64[D]") else [
+        {"date": str(OFF_SEASON_DATE), "built in": "acquired in the wet season (day of year "
+                                                 f"{int((OFF_SEASON_DATE - OFF_SEASON_DATE.astype('datetime64[Y]')).astype(int)) + 1})"}]
+    faults += [
+        {"date": str(dates[i]), "built in": f"shifted by {np.hypot(dy, dx):.2f} px (y {dy:+g}, x {dx:+g})"},
+        {"date": str(dates[j]), "built in": f"{BRIGHT['band']} band x {BRIGHT['gain']:g} (calibration-like gain)"},
+    ]
+    return observed, faults
 
 
 def _write_truth(scenario, path: Path, overwrite: bool) -> None:
@@ -180,9 +246,12 @@ def _write_truth(scenario, path: Path, overwrite: bool) -> None:
 
 def summary_text(result: DemoResult) -> str:
     """A short plain-text account of the demo's scores."""
-    lines = ["", "Recovered fractions against the invented truth (all valid pixel-dates):",
+    lines = ["", "Faults built into the record, and what the date checks found (ledger: dates.csv):",
+             result.checks.to_string(index=False), "",
+             "Recovered fractions against the invented truth (the dates used, all valid pixels):",
              result.errors.to_string(index=False, float_format=lambda v: f"{v:.4f}"), "",
-             "Expected trajectory recovered, per zone (% of the zone's pixels):",
+             "Expected trajectory recovered, per zone (% of the zone's pixels; the dates left out do not "
+             "disturb it):",
              result.hits.to_string(index=False, float_format=lambda v: f"{v:.1f}"), ""]
     if len(result.rule_areas):
         lines += ["Modification rules (area flagged):",

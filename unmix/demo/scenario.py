@@ -2,7 +2,7 @@
 
 Everything here is made up for demonstration and testing; no place, measurement or event is real.
 A 4.8 km x 4.8 km dryland catchment (160 x 160 pixels of 30 m) is observed on 40 dates over ten years
-by a Landsat-8-like sensor. Four cover types mix in every pixel: green vegetation, dry vegetation,
+(four a year in the austral dry season) by Landsat-like sensors. Four cover types mix in every pixel: green vegetation, dry vegetation,
 sand and photometric shade. Five zones carry the story the tool should recover:
 
 ``stable``
@@ -71,15 +71,31 @@ class Scenario:
     crs_epsg: int = CRS_EPSG
 
 
+#: Day-of-year span of the record's dates: the late austral dry season (mid August to late November), when
+#: green cover is least and soil and dry plant matter show best, the season dryland cover monitoring
+#: usually keeps (common practice).
+DRY_SEASON_DOY = (225, 325)
+
+
 def _dates(n_time: int, first_year: int, rng: np.random.Generator) -> np.ndarray:
     per_year = max(1, n_time // 10)
+    start, end = DRY_SEASON_DOY
+    step = (end - start - 20) / max(per_year - 1, 1)
     base = np.array(
-        [np.datetime64(f"{first_year + i // per_year}-01-15") + int(365 * (i % per_year) / per_year)
-         for i in range(n_time)],
+        [np.datetime64(f"{first_year + i // per_year}-01-01") + int(start + 10 + step * (i % per_year))
+         - 1 for i in range(n_time)],
         dtype="datetime64[D]",
     )
     jitter = rng.integers(-10, 11, size=n_time).astype("timedelta64[D]")
     return np.sort(base + jitter)
+
+
+def _ground_texture(size: int, rng: np.random.Generator) -> np.ndarray:
+    """Fine static texture of the ground (stones, drainage lines, shrub clumps): smoothed noise, sd 1."""
+    from scipy import ndimage
+
+    field = ndimage.gaussian_filter(rng.normal(size=(size, size)), 1.2, mode="wrap")
+    return (field - field.mean()) / field.std()
 
 
 def make_scenario(
@@ -91,6 +107,7 @@ def make_scenario(
     noise_sd: float = 0.004,
     cloud_share: float = 0.04,
     seed: int = 7,
+    extra_dates=(),
 ) -> Scenario:
     """Build the invented Marrow Creek scene.
 
@@ -112,6 +129,8 @@ def make_scenario(
         Expected share of pixel-dates hidden by clouds (set to NaN).
     seed : int
         Seed of the random generator; the scene is reproducible.
+    extra_dates : sequence of str or datetime64, optional
+        Dates added to the record (e.g. one outside the dry season), with the season of their day.
 
     Returns
     -------
@@ -122,6 +141,8 @@ def make_scenario(
         raise ValueError(f"endmember_spectra must hold {len(ENDMEMBERS)} spectra ({', '.join(ENDMEMBERS)})")
     rng = np.random.default_rng(seed)
     dates = _dates(n_time, first_year, rng)
+    if len(extra_dates):
+        dates = np.sort(np.concatenate([dates, np.asarray(extra_dates, dtype="datetime64[D]")]))
     if spectra.ndim == 2:
         spectra = np.broadcast_to(spectra, (len(dates), *spectra.shape))
     elif spectra.shape[0] != len(dates):
@@ -136,6 +157,12 @@ def make_scenario(
     base_gv = 0.30 + 0.04 * np.sin(xx / 17.0) * np.cos(yy / 23.0)
     base_dv = 0.22 + 0.03 * np.cos(xx / 11.0)
     base_sd = 0.36 - 0.03 * np.sin(yy / 13.0)
+    # The ground's fine static texture: what co-registration is measured on, and the pseudo-invariant
+    # pixels of the radiometric comparison, as in a real scene.
+    texture = _ground_texture(size, np.random.default_rng([seed, 1]))
+    base_sd = base_sd + 0.12 * texture
+    base_dv = base_dv - 0.07 * texture
+    base_gv = base_gv - 0.05 * texture
 
     nt = len(t)
     gv = np.broadcast_to(base_gv, (nt, size, size)).copy()

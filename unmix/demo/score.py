@@ -8,7 +8,7 @@ import xarray as xr
 
 from .scenario import ENDMEMBERS, ZONES, Scenario
 
-__all__ = ["EXPECTED", "fraction_errors", "trajectory_hits"]
+__all__ = ["EXPECTED", "date_checks", "fraction_errors", "trajectory_hits"]
 
 #: Trajectory each zone should show, per endmember (what the invented story built into it).
 #: Pixels where the designed change is too weak to detect are left out (see ``_strong``).
@@ -29,9 +29,11 @@ EXPECTED = {
 def fraction_errors(scenario: Scenario, fractions: xr.Dataset) -> pd.DataFrame:
     """Mean absolute error and bias of recovered fractions against the truth, per endmember."""
     rows = []
+    # the product holds the dates used (the date checks leave some out): score those against their truth
+    at = np.searchsorted(scenario.dates.astype("datetime64[D]"), fractions["time"].values.astype("datetime64[D]"))
     for k, name in enumerate(ENDMEMBERS):
         est = np.asarray(fractions["fractions"].sel(endmember=name).values, dtype=float)
-        truth = scenario.fractions[:, k]
+        truth = scenario.fractions[at, k]
         ok = np.isfinite(est)
         err = est[ok] - truth[ok]
         rows.append({"endmember": name, "mae": float(np.mean(np.abs(err))), "bias": float(np.mean(err)),
@@ -64,4 +66,33 @@ def trajectory_hits(scenario: Scenario, trends: xr.Dataset) -> pd.DataFrame:
         hits = int(np.count_nonzero(codes == code_of[label]))
         rows.append({"zone": zone_name, "endmember": endmember, "expected": label, "pixels": int(mask.sum()),
                      "hit_pct": 100.0 * hits / mask.sum() if mask.sum() else np.nan})
+    return pd.DataFrame(rows)
+
+
+def date_checks(faults: list[dict], ledger: xr.Dataset) -> pd.DataFrame:
+    """What the date checks found on each fault built into the record, and what was done with the date.
+
+    Parameters
+    ----------
+    faults : list of dict
+        ``date`` and ``built in`` (a description) per fault (:func:`unmix.demo.run.inject_faults`).
+    ledger : xarray.Dataset
+        The ledger of the run (:func:`unmix.io.ledger.ledger_from_product`).
+    """
+    days = ledger["time"].values.astype("datetime64[D]")
+    rows = []
+    for fault in faults:
+        i = int(np.flatnonzero(days == np.datetime64(fault["date"], "D"))[0])
+        found = []
+        if "shift_y" in ledger and np.isfinite(ledger["shift_y"].values[i]):
+            found.append(f"shift {float(np.hypot(ledger['shift_y'].values[i], ledger['shift_x'].values[i])):.2f} px")
+        if "gain" in ledger:
+            gain = ledger["gain"].values[i]
+            if np.isfinite(gain).any():
+                j = int(np.nanargmax(np.abs(gain - 1.0)))
+                found.append(f"gain {float(gain[j]):.3f} in {ledger['band'].values[j]}: the date reads "
+                             f"{1 / float(gain[j]):.2f} x the reference")
+        reason = str(ledger["reason"].values[i])
+        rows.append({"date": fault["date"], "built in": fault["built in"], "measured": "; ".join(found) or "-",
+                     "used": bool(ledger["used"].values[i]), "ledger says": reason or "-"})
     return pd.DataFrame(rows)

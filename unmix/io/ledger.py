@@ -27,11 +27,14 @@ from ..errors import InputError, StackReadError
 from .products.atomic import atomic_path
 from .products.claim import ProductSet
 
-__all__ = ["write_ledger_csv", "read_ledger_csv", "ledger_variables", "ledger_from_product", "LEDGER_PREFIX"]
+__all__ = ["write_ledger_csv", "read_ledger_csv", "ledger_variables", "ledger_from_product", "find_ledger", "LEDGER_PREFIX"]
 
 #: Prefix of the ledger's variables inside a product.
 LEDGER_PREFIX = "date_"
 _BAND_DIM = "ledger_band"
+#: Ledger attributes carried into products (on the ``used`` variable, prefixed ``ledger_``): the one-line
+#: verdict per condition, the reference date and the band the shifts were measured on.
+_CARRIED_ATTRS = ("verdicts", "reference_date", "registration_band")
 
 
 def _number(value) -> str:
@@ -193,6 +196,10 @@ def ledger_variables(ledger: xr.Dataset, *, dim: str = "time") -> xr.Dataset:
             data = var.astype(np.int8)
             attrs.update(flag_values=np.array([0, 1], np.int8), flag_meanings="not_used used")
         out[LEDGER_PREFIX + name] = data.assign_attrs(attrs)
+    carried = {k: v for k, v in ledger.attrs.items() if k in _CARRIED_ATTRS}
+    if carried and LEDGER_PREFIX + "used" in out:
+        out[LEDGER_PREFIX + "used"].attrs.update(
+            {f"ledger_{k}": "\n".join(v) if isinstance(v, (list, tuple)) else str(v) for k, v in carried.items()})
     if "band" in out.dims:
         out = out.rename({"band": _BAND_DIM})
     if dim != "time":
@@ -223,5 +230,39 @@ def ledger_from_product(ds: xr.Dataset) -> xr.Dataset:
         parts[name] = values
     parts["used"] = parts["used"].astype(bool)
     bands = [str(b) for b in ds[_BAND_DIM].values] if _BAND_DIM in ds.coords else None
-    return build_ledger(ds[dim].values, bands=bands if any(n in parts for n in LEDGER_BAND_VARIABLES) else None,
-                        **parts)
+    ledger = build_ledger(ds[dim].values, bands=bands if any(n in parts for n in LEDGER_BAND_VARIABLES) else None,
+                          **parts)
+    used_attrs = ds[names["used"]].attrs
+    for key in _CARRIED_ATTRS:
+        if f"ledger_{key}" in used_attrs:
+            value = str(used_attrs[f"ledger_{key}"])
+            ledger.attrs[key] = value.split("\n") if key == "verdicts" else value
+    return ledger
+
+
+def find_ledger(path: str | os.PathLike) -> xr.Dataset | None:
+    """The ledger of a product or product folder at ``path``; None when ``path`` holds none (an input stack).
+
+    A NetCDF file carrying ledger variables (``fractions.nc``, ``trends.nc``) gives its ledger, with the
+    verdicts and reference date it was written with; a folder gives the ledger of its ``fractions.nc``,
+    else of its ``trends.nc``, else its ``dates.csv``.
+    """
+    from .products import open_product
+
+    path = Path(path)
+    candidates = [path] if path.is_file() else [path / "fractions.nc", path / "trends.nc"]
+    for nc in candidates:
+        if nc.suffix.lower() != ".nc" or not nc.is_file():
+            continue
+        with xr.open_dataset(nc, decode_times=False) as probe:
+            carries = any("ledger_name" in v.attrs for v in probe.data_vars.values())
+        if carries:
+            ds = open_product(nc)
+            try:  # the ledger's variables only: never the product's cube
+                names = [k for k, v in ds.data_vars.items() if "ledger_name" in v.attrs]
+                return ledger_from_product(ds[names].load())
+            finally:
+                ds.close()
+    if path.is_dir() and (path / "dates.csv").is_file():
+        return read_ledger_csv(path / "dates.csv")
+    return None

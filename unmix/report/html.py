@@ -15,7 +15,7 @@ from matplotlib.figure import Figure
 
 from .. import __version__
 from .figures import fraction_maps_figure, trajectory_maps_figure
-from .tables import rule_area_table, trajectory_area_table
+from .tables import ledger_table, rule_area_table, trajectory_area_table
 
 __all__ = ["CAUTION", "build_report"]
 
@@ -47,6 +47,15 @@ def _table_html(df: pd.DataFrame) -> str:
     return df.to_html(index=False, float_format=lambda v: f"{v:,.2f}", na_rep="–", border=0)
 
 
+def _ledger(product: xr.Dataset):
+    from ..io.ledger import ledger_from_product
+
+    if not any("ledger_name" in v.attrs for v in product.data_vars.values()):
+        return None
+    names = [k for k, v in product.data_vars.items() if "ledger_name" in v.attrs]
+    return ledger_from_product(product[names].load())
+
+
 def build_report(
     fractions: xr.Dataset | None,
     trends: xr.Dataset,
@@ -73,9 +82,12 @@ def build_report(
     html_text : str
         A self-contained HTML page (figures embedded).
     tables : dict of str -> pandas.DataFrame
-        ``"trajectory_areas"`` and ``"rule_areas"``, for writing as CSV beside the report.
+        ``"trajectory_areas"``, ``"rule_areas"`` and ``"dates"`` (the date ledger; empty when the products
+        carry none), for writing as CSV beside the report.
     """
-    tables = {"trajectory_areas": trajectory_area_table(trends), "rule_areas": rule_area_table(trends)}
+    ledger = _ledger(trends if fractions is None else fractions)
+    tables = {"trajectory_areas": trajectory_area_table(trends), "rule_areas": rule_area_table(trends),
+              "dates": ledger_table(ledger) if ledger is not None else pd.DataFrame()}
     parts = [f"<h1>{html.escape(title)}</h1>",
              f'<p class="caution"><strong>Caution.</strong> {html.escape(CAUTION)}</p>']
 
@@ -101,6 +113,18 @@ def build_report(
     if len(tables["rule_areas"]):
         parts.append("<h2>Modification rules</h2>")
         parts.append(_table_html(tables["rule_areas"]))
+
+    if ledger is not None:
+        used = int(ledger["used"].values.sum())
+        parts.append("<h2>Dates used and left out</h2>")
+        parts.append(f"<p>{used} of {ledger.sizes['time']} dates used. Before unmixing, every date was checked "
+                     "for comparability with the others: season (day-of-year window), co-registration (sub-pixel "
+                     "shift against a reference date by phase correlation), radiometry (gain and offset against "
+                     "the reference date on pseudo-invariant pixels) and the sensors on the grid.</p>")
+        verdicts = list(ledger.attrs.get("verdicts", []))
+        if verdicts:
+            parts.append("<ul>" + "".join(f"<li>{html.escape(v)}</li>" for v in verdicts) + "</ul>")
+        parts.append(tables["dates"].to_html(index=False, na_rep="–", border=0))
 
     for heading, body in extra_sections or []:
         parts.append(f"<h2>{html.escape(heading)}</h2>{body}")
