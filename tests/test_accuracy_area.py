@@ -177,6 +177,9 @@ def test_unsampled_and_unreferenced_classes_give_nan_not_a_crash():
     # a class neither mapped nor sampled holds no part of the map
     t = stratified_area([[10, 2, 0], [1, 9, 0], [0, 0, 0]], [10.0, 10.0, 0.0])
     assert t["area"].iloc[2] == 0 and np.isfinite(t["area"].iloc[:2]).all()
+    assert np.isfinite(t["area_se"]).all() and np.isfinite(t.attrs["overall_se"])
+    assert np.isnan(t["users_accuracy"].iloc[2])  # no sample unit: no user's accuracy
+    np.testing.assert_allclose(t["area_se"].iloc[:2], stratified_area([[10, 2], [1, 9]], [10.0, 10.0])["area_se"])
 
 
 @pytest.mark.parametrize("counts, area, error, words", [

@@ -182,22 +182,24 @@ def stratified_area(counts, mapped_area, *, classes: Sequence[str] | None = None
     share = _shares(n, a)  # n_ij / n_i. per stratum
     with np.errstate(invalid="ignore", divide="ignore"):
         dof = np.where(n_i > 1, n_i - 1, np.nan)
+        # a stratum of no mapped area adds nothing to any variance (even unsampled, where dof is NaN)
+        var_term = np.where((a > 0)[:, None], share * (1 - share) / dof[:, None], 0.0)
         # eqs. 8, 10: area proportion of each reference class and its standard error
         p_k = p.sum(axis=0)
-        var_p_k = (w[:, None] ** 2 * share * (1 - share) / dof[:, None]).sum(axis=0)
+        var_p_k = (w[:, None] ** 2 * var_term).sum(axis=0)
         # eqs. 2, 6: user's accuracy
-        users = np.diag(share).copy()
+        users = np.where(n_i > 0, np.diag(share), np.nan)
         var_users = users * (1 - users) / dof
         # eqs. 3, 7: producer's accuracy (estimated reference area of class j: N_.j = sum_i N_i. n_ij / n_i.)
         diag_p = np.diag(p)
         producers = diag_p / p_k
         n_hat = (a[:, None] * share).sum(axis=0)
-        off = (a[:, None] ** 2 * share * (1 - share) / dof[:, None])
+        off = a[:, None] ** 2 * var_term
         off_sum = off.sum(axis=0) - np.diag(off)
-        var_prod = (a ** 2 * (1 - producers) ** 2 * users * (1 - users) / dof + producers ** 2 * off_sum) / n_hat ** 2
+        var_prod = (a ** 2 * (1 - producers) ** 2 * np.diag(var_term) + producers ** 2 * off_sum) / n_hat ** 2
         # eqs. 1, 5: overall accuracy
         overall = diag_p.sum()
-        var_overall = (w ** 2 * users * (1 - users) / dof).sum()
+        var_overall = (w ** 2 * np.diag(var_term)).sum()
     producers = np.where(p_k > 0, producers, np.nan)
     var_prod = np.where(p_k > 0, var_prod, np.nan)
     se_p = np.sqrt(var_p_k)
