@@ -52,3 +52,24 @@ def test_too_few_pairs_and_bad_shapes():
         fraction_agreement(np.zeros((3, 2)), np.zeros((3, 3)))
     with pytest.raises(ShapeError):
         fraction_agreement(np.zeros((3, 2)), np.zeros((3, 2)), endmembers=["a"])
+
+
+def test_scatter_figure_has_one_panel_per_endmember_with_the_identity_line():
+    from matplotlib.figure import Figure
+
+    from unmix.report.accuracy import fraction_scatter_figure
+
+    rng = np.random.default_rng(0)
+    ref = rng.dirichlet([2, 2], size=30)
+    est = np.clip(ref + rng.normal(0, 0.05, ref.shape), 0, 1)
+    table = fraction_agreement(est, ref, endmembers=["gv", "soil"])
+    fig = fraction_scatter_figure(est, ref, table)
+    assert isinstance(fig, Figure) and len(fig.axes) == 2
+    for ax, name in zip(fig.axes, ["gv", "soil"]):
+        assert ax.get_title() == name
+        identity = [ln for ln in ax.get_lines() if ln.get_linestyle() == "--"][0]
+        np.testing.assert_allclose(identity.get_xydata(), [[0, 0], [1, 1]])
+        fit = [ln for ln in ax.get_lines() if ln.get_linestyle() == "-"][0]
+        fit_y = fit.get_ydata()  # least-squares line as scipy.stats.linregress gives it
+        lr = linregress(ref[:, fig.axes.index(ax)], est[:, fig.axes.index(ax)])
+        np.testing.assert_allclose(fit_y, [lr.intercept, lr.intercept + lr.slope], rtol=1e-10)

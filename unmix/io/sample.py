@@ -194,7 +194,7 @@ def write_tables(tables: dict[str, pd.DataFrame], out_dir: str | os.PathLike, *,
     for name, df in tables.items():
         path = Path(out_dir) / f"{name}.csv"
         with products.writing(path) as tmp:
-            df.to_csv(tmp, index=index, float_format="%.6g")
+            df.to_csv(tmp, index=index, float_format="%.8g")
         paths.append(path)
     return paths
 
@@ -260,7 +260,7 @@ def read_reference_points(path: str | os.PathLike, endmembers: list[str], crs_wk
     if missing.size:
         raise SampleFormatError(f"{path}, line {missing[0] + 2}: the point has no coordinates")
     if "date" in table.columns:
-        dates = pd.to_datetime(table["date"], errors="coerce")
+        dates = pd.to_datetime(table["date"].astype(str), format="ISO8601", errors="coerce")
         bad = np.flatnonzero(dates.isna().to_numpy())
         if bad.size:
             raise SampleFormatError(f"{path}, line {bad[0] + 2}: date {table['date'].iloc[bad[0]]!r} is not a date "
