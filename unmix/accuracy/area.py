@@ -89,7 +89,7 @@ def error_matrix_proportions(counts, mapped_area, *, classes: Sequence[str] | No
         (k, k) proportions summing to 1 over the strata that were sampled; index ``map``, columns
         ``reference``. A map class with mapped area but no sample unit has a row of NaN (its share of
         the map cannot be distributed among reference classes).
-    
+
     References
     ----------
     Olofsson, P., Foody, G. M., Herold, M., Stehman, S. V., Woodcock, C. E., & Wulder, M. A. (2014).
@@ -155,7 +155,7 @@ def stratified_area(counts, mapped_area, *, classes: Sequence[str] | None = None
     standard error from a stratum of a single unit (``n_i. - 1 = 0``). A stratum with mapped area but
     no sample unit makes the areas, proportions and overall accuracy NaN, since its part of the map
     is not estimated.
-    
+
     References
     ----------
     Olofsson, P., Foody, G. M., Herold, M., Stehman, S. V., Woodcock, C. E., & Wulder, M. A. (2014).
