@@ -11,6 +11,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
 
 from unmix.accuracy import error_matrix_proportions, stratified_area
 from unmix.errors import InputError, ShapeError, UnmixError
@@ -201,3 +203,20 @@ def test_bad_confidence_and_class_names():
     with pytest.raises(ShapeError, match="distinct"):
         stratified_area(COUNTS, HA, classes=["a", "a", "b", "c"])
     assert isinstance(stratified_area(COUNTS, HA, confidence=0.9), pd.DataFrame)
+
+
+@given(st.integers(2, 5).flatmap(lambda k: st.tuples(
+    st.lists(st.lists(st.integers(0, 30), min_size=k, max_size=k), min_size=k, max_size=k),
+    st.lists(st.floats(1.0, 1e6), min_size=k, max_size=k))))
+def test_invariants_of_any_sample(case):
+    # properties of the estimators (Olofsson et al. 2014, eqs. 4, 8, 9): proportions of the error
+    # matrix sum to 1, the estimated areas to the mapped total, accuracies lie in 0..1
+    counts, area = np.array(case[0]), np.array(case[1])
+    counts[np.arange(len(area)), np.arange(len(area))] += 2  # every stratum sampled
+    t = stratified_area(counts, area)
+    assert np.sum(t.attrs["error_matrix"]) == pytest.approx(1.0)
+    assert t["area"].sum() == pytest.approx(area.sum(), rel=1e-9)
+    for column in ("users_accuracy", "producers_accuracy"):
+        values = t[column].to_numpy()
+        assert np.all((values[np.isfinite(values)] >= 0) & (values[np.isfinite(values)] <= 1 + 1e-12))
+    assert 0 <= t.attrs["overall_accuracy"] <= 1 + 1e-12 and (t["area_se"] >= 0).all()

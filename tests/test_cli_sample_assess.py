@@ -114,6 +114,8 @@ def test_sample_geojson_is_read_by_gdal_in_the_map_crs(tmp_path, trends_nc, caps
     np.testing.assert_allclose(gdf.geometry.x, pts["x"])
     np.testing.assert_allclose(gdf.geometry.y, pts["y"])
     assert gdf["reference"].isna().all() and (gdf["map_class"].to_numpy() == pts["map_class"].to_numpy()).all()
+    about = json.loads((tmp_path / "sample.geojson").read_text())["unmix"]  # provenance of the draw
+    assert about["map"] == "loss" and about["seed"] == 0 and about["product"] == str(trends_nc)
 
 
 def test_default_sample_size_follows_eq_13(tmp_path, trends_nc, capsys):

@@ -7,6 +7,7 @@ from pathlib import Path
 import click
 import numpy as np
 
+from .. import __version__
 from ..accuracy import DEFAULT_MIN_PER_CLASS, allocate, sample_size
 from ..errors import InputError
 from ._common import claim_products, echo_summary, out_dir_option, overwrite_option, writes_products
@@ -81,7 +82,7 @@ def sample(trends: Path, map_name: str, endmember: str | None, total: int | None
         raise InputError("give either --total or --per-class, not both")
     products = claim_products([Path(out) / name for name in SAMPLE_FILES], overwrite)
     ds = open_product(trends)
-    da = select_class_map(ds, map_name, endmember)
+    da = select_class_map(ds, map_name, endmember).load()  # one read: counted, then drawn from
     strata = strata_table(da)
     classes = strata["map_class"].tolist()
     pixels = strata["mapped_pixels"].to_numpy()
@@ -101,7 +102,9 @@ def sample(trends: Path, map_name: str, endmember: str | None, total: int | None
     strata["n_sample"] = sizes
     points = sample_points(da, strata, sizes, seed)
     wkt, _ = georef_of(da)
-    write_sample(points, strata, out, crs_wkt=wkt, products=products)
+    about = {"unmix_version": __version__, "product": str(trends), "map": map_name, "endmember": endmember,
+             "seed": seed, "sample_size": how}
+    write_sample(points, strata, out, crs_wkt=wkt, products=products, about=about)
     ds.close()
     products.commit()
     label = f"{map_name} of {endmember}" if endmember else map_name

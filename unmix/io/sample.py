@@ -60,7 +60,7 @@ def _number(v):
 
 
 def write_sample(points: pd.DataFrame, strata: pd.DataFrame, out_dir: str | os.PathLike, *, crs_wkt: str | None,
-                 products: ProductSet) -> list[Path]:
+                 products: ProductSet, about: dict | None = None) -> list[Path]:
     """Write ``sample.csv``, ``sample.geojson`` and ``strata.csv`` into ``out_dir`` as part of ``products``.
 
     Parameters
@@ -73,6 +73,8 @@ def write_sample(points: pd.DataFrame, strata: pd.DataFrame, out_dir: str | os.P
         CRS of ``x``/``y``.
     products : ProductSet
         The claimed set holding the three paths (committed by the caller).
+    about : dict, optional
+        Provenance (version, product, map, seed) kept in the GeoJSON's ``unmix`` member.
     """
     out = Path(out_dir)
     points = points.copy()
@@ -87,7 +89,8 @@ def write_sample(points: pd.DataFrame, strata: pd.DataFrame, out_dir: str | os.P
         features.append({"type": "Feature", "id": int(rec["point_id"]),
                          "geometry": {"type": "Point", "coordinates": [rec["x"], rec["y"]]},
                          "properties": {k: (v.item() if isinstance(v, np.generic) else v) for k, v in props.items()}})
-    collection = {"type": "FeatureCollection", "name": "sample", **_crs_members(crs_wkt), "features": features}
+    collection = {"type": "FeatureCollection", "name": "sample", **_crs_members(crs_wkt),
+                  **({"unmix": about} if about else {}), "features": features}
     with products.writing(out / "sample.geojson") as tmp:
         tmp.write_text(json.dumps(collection, indent=1), encoding="utf-8")
     with products.writing(out / "strata.csv") as tmp:
