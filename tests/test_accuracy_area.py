@@ -137,6 +137,26 @@ def test_matches_the_stratified_estimators_on_unit_indicators(example):
     assert example.attrs["overall_se"] == pytest.approx(np.sqrt(var), rel=1e-12)
 
 
+def test_finite_population_correction():
+    # Cochran (1977) eq. 5.6: each stratum's variance term times (1 - n_h / N_h); computed here from
+    # the unit indicators with numpy
+    units = np.array([80, 100, 3000, 6000])
+    t = stratified_area(COUNTS, units, classes=CLASSES, stratum_units=units)
+    strata, refs = _units(COUNTS)
+    W = units / units.sum()
+    for k, name in enumerate(CLASSES):
+        y = (refs == k).astype(float)
+        var = sum(W[h] ** 2 * (1 - (strata == h).sum() / units[h]) * y[strata == h].var(ddof=1) / (strata == h).sum()
+                  for h in range(4))
+        assert t.loc[name, "area_se"] == pytest.approx(units.sum() * np.sqrt(var), rel=1e-12)
+    # a class sampled in full (here 1 pixel of 1) adds no variance instead of making every SE NaN
+    t = stratified_area([[30, 2, 0], [3, 40, 0], [0, 0, 1]], [500, 800, 1], stratum_units=[500, 800, 1])
+    assert np.isfinite(t["area_se"]).all() and t["users_se"].iloc[2] == 0
+    assert np.isnan(stratified_area([[30, 2, 0], [3, 40, 0], [0, 0, 1]], [500, 800, 1])["area_se"]).all()
+    with pytest.raises(InputError, match="stratum_units"):
+        stratified_area(COUNTS, units, stratum_units=[10, 10, 10, 10])
+
+
 def test_area_unit_is_the_unit_given():
     pixels = stratified_area(COUNTS, PIXELS, classes=CLASSES)
     hectares = stratified_area(COUNTS, HA, classes=CLASSES)

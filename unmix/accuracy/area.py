@@ -122,7 +122,7 @@ def _shares(n: np.ndarray, a: np.ndarray) -> np.ndarray:
 
 
 def stratified_area(counts, mapped_area, *, classes: Sequence[str] | None = None,
-                    confidence: float = 0.95) -> pd.DataFrame:
+                    confidence: float = 0.95, stratum_units=None) -> pd.DataFrame:
     """Error-adjusted area, user's and producer's accuracy of every class with confidence intervals.
 
     Parameters
@@ -136,6 +136,11 @@ def stratified_area(counts, mapped_area, *, classes: Sequence[str] | None = None
         Class names, the index of the result (default ``class_0`` ...).
     confidence : float, default 0.95
         Confidence level of the intervals (normal approximation, half-widths ``z * se``).
+    stratum_units : (k,) array_like of int, optional
+        Units (pixels) of each stratum. When given, every variance term of stratum ``i`` is multiplied by
+        the finite population correction ``1 - n_i. / N_i`` (Cochran 1977, eq. 5.6), so that a stratum
+        sampled in full (a small class) adds no variance instead of NaN; without it the terms are those
+        of Olofsson et al. (2014), who take the strata as large.
 
     Returns
     -------
@@ -180,16 +185,27 @@ def stratified_area(counts, mapped_area, *, classes: Sequence[str] | None = None
     n_i = n.sum(axis=1)
     p = _proportions(n, a)
     share = _shares(n, a)  # n_ij / n_i. per stratum
+    fpc = None
+    if stratum_units is not None:
+        units = np.asarray(stratum_units, dtype=float)
+        if units.shape != n_i.shape or np.any(units < n_i):
+            raise InputError(f"stratum_units needs one unit count per stratum, each at least its sample size "
+                             f"{n_i.astype(int).tolist()}; got {np.ravel(units).tolist()}")
+        with np.errstate(invalid="ignore", divide="ignore"):
+            fpc = np.where(units > 0, 1.0 - n_i / units, 0.0)
     with np.errstate(invalid="ignore", divide="ignore"):
         dof = np.where(n_i > 1, n_i - 1, np.nan)
         # a stratum of no mapped area adds nothing to any variance (even unsampled, where dof is NaN)
         var_term = np.where((a > 0)[:, None], share * (1 - share) / dof[:, None], 0.0)
+        if fpc is not None:  # a stratum sampled in full has no sampling variance
+            var_term = np.where((fpc > 0)[:, None], fpc[:, None] * var_term, 0.0)
         # eqs. 8, 10: area proportion of each reference class and its standard error
         p_k = p.sum(axis=0)
         var_p_k = (w[:, None] ** 2 * var_term).sum(axis=0)
         # eqs. 2, 6: user's accuracy
         users = np.where(n_i > 0, np.diag(share), np.nan)
-        var_users = users * (1 - users) / dof
+        var_users = users * (1 - users) / dof if fpc is None else np.where(
+            fpc > 0, fpc * users * (1 - users) / dof, np.where(n_i > 0, 0.0, np.nan))
         # eqs. 3, 7: producer's accuracy (estimated reference area of class j: N_.j = sum_i N_i. n_ij / n_i.)
         diag_p = np.diag(p)
         producers = diag_p / p_k

@@ -38,7 +38,8 @@ def assess(sample_file: Path, strata_file: Path | None, confidence: float, out: 
     Follows Olofsson et al. (2014, Remote Sensing of Environment 148, 42-57): the error matrix in
     estimated area proportions, user's, producer's and overall accuracy, and the area of every class
     estimated from the reference labels, each with its confidence interval. Writes OUT/sample_counts.csv,
-    OUT/error_matrix.csv, OUT/accuracy.csv and OUT/overall.csv.
+    OUT/error_matrix.csv, OUT/accuracy.csv and OUT/overall.csv. Variances carry the finite population
+    correction of each class, so a small class sampled in full adds no variance.
     """
     from ..io.sample import read_sample, read_strata, write_tables
 
@@ -54,7 +55,8 @@ def assess(sample_file: Path, strata_file: Path | None, confidence: float, out: 
     in_ha = np.isfinite(area_m2)
     unit = "ha" if in_ha else "pixels"
     mapped = strata["mapped_pixels"].to_numpy(float) * (area_m2 / 1e4 if in_ha else 1.0)
-    table = stratified_area(counts.to_numpy(), mapped, classes=classes, confidence=confidence)
+    table = stratified_area(counts.to_numpy(), mapped, classes=classes, confidence=confidence,
+                            stratum_units=strata["mapped_pixels"].to_numpy())
     pct = f"{100 * confidence:g}"
     accuracy = table.rename(columns={"mapped_area": f"mapped_area_{unit}", "area": f"area_{unit}",
                                      "area_se": f"area_se_{unit}", "area_ci95": f"area_ci{pct}_{unit}",
