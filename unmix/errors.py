@@ -23,6 +23,8 @@ __all__ = [
     "ProductClaimedError",
     "ProductWriteError",
     "ProductMismatchError",
+    "SampleFormatError",
+    "SampleReadError",
     "UnmixWarning",
     "CollinearityWarning",
     "WindowWarning",
@@ -92,6 +94,14 @@ class ProductWriteError(UnmixError, OSError):
 
 class ProductMismatchError(InputError):
     """Products given together do not belong together: their grids (CRS, transform, shape) or dates differ."""
+
+
+class SampleFormatError(InputError):
+    """An interpreted sample or reference-points file breaks its format (file, row and column named)."""
+
+
+class SampleReadError(UnmixError, OSError):
+    """A sample, strata or reference-points file cannot be found or read (the path is named)."""
 
 
 class UnmixWarning(UserWarning):

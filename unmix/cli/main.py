@@ -44,14 +44,17 @@ class _LazyGroup(click.Group):
 
 # Subcommands register here: name -> "module:command" (one module per command; keep alphabetical).
 _COMMANDS = {
+    "assess": ".assess:assess",
     "demo": ".demo:demo",
     "endmembers": ".endmembers:endmembers",
     "fractions": ".fractions:fractions",
     "library": ".library:library",
     "report": ".report:report",
+    "sample": ".sample:sample",
     "sensors": ".sensors:sensors",
     "survey": ".survey:survey",
     "trends": ".trends:trends",
+    "validate": ".validate:validate",
 }
 
 
