@@ -23,6 +23,7 @@ __all__ = [
     "ProductClaimedError",
     "ProductWriteError",
     "ProductMismatchError",
+    "ZoneFileError",
     "UnmixWarning",
     "CollinearityWarning",
     "WindowWarning",
@@ -92,6 +93,11 @@ class ProductWriteError(UnmixError, OSError):
 
 class ProductMismatchError(InputError):
     """Products given together do not belong together: their grids (CRS, transform, shape) or dates differ."""
+
+
+class ZoneFileError(InputError):
+    """A zones file cannot be used: missing, unreadable, empty, without a CRS, or with geometries that are
+    not polygons (file and feature named)."""
 
 
 class UnmixWarning(UserWarning):
