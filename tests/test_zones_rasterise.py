@@ -86,6 +86,9 @@ def test_zone_tables_add_up_and_lazy_equals_eager():
         np.testing.assert_allclose(lazy["area_ha"].values, area.values)
         shares = eager["share_pct"].sel(zone="west").values[:4]
         assert shares.sum() == pytest.approx(100.0)
+        whole = zone_area_table(lazy_codes, ["a", "b", "c", "d"], None)  # no zones: the whole map only
+        assert list(whole["zone"].values) == ["whole_map"]
+        np.testing.assert_allclose(whole["area_ha"].values[0], counts * 0.09)
     frame = area_table_frame(eager, endmember="gv")
     assert list(frame.columns[:3]) == ["endmember", "zone", "class"]
     assert len(frame) == 5 * 5

@@ -158,7 +158,7 @@ def period_classes(fractions: xr.DataArray, period: Period,
     return codes, names
 
 
-def from_to_table(before: xr.DataArray, after: xr.DataArray, class_names, weights: xr.DataArray,
+def from_to_table(before: xr.DataArray, after: xr.DataArray, class_names, weights: xr.DataArray | None,
                   row_area=None) -> xr.Dataset:
     """Ground area [ha] moving from each class of one period to each class of another, per zone.
 
@@ -167,8 +167,8 @@ def from_to_table(before: xr.DataArray, after: xr.DataArray, class_names, weight
     before, after : xarray.DataArray
         (y, x) class codes (:func:`period_classes`), -1 for no data.
     class_names : sequence of str
-    weights : xarray.DataArray
-        (zone, y, x) from :func:`unmix.cube.zones.zone_weights`.
+    weights : xarray.DataArray or None
+        (zone, y, x) from :func:`unmix.cube.zones.zone_weights`; None: the whole map only.
     row_area : (ny,) ndarray, optional
         Pixel area per row [m^2]; by default from the grid.
 

@@ -163,13 +163,20 @@ def _delayed(func):
 
 
 def _tally_block(codes, weights, area, *, n_classes):
-    """Block of a (y, x) class map -> (1, 1, 2, n_layers + 2, n_classes + 1) pixels and areas."""
-    union = weights[-1]
-    layers = np.concatenate([weights, (1.0 - union)[None], np.ones_like(union)[None]])
+    """Block of a (y, x) class map -> (1, 1, 2, n_layers, n_classes + 1) pixels and areas.
+
+    The layers are the zones, their union, outside the union and the whole block; without zones
+    (``weights`` None) the whole block only.
+    """
+    ones = np.ones((1, *codes.shape))
+    if weights is None:
+        layers = ones
+    else:
+        layers = np.concatenate([weights, 1.0 - weights[-1:], ones])
     return zone_class_tally(codes, n_classes, layers, area[:, None])[None, None]
 
 
-def zone_area_table(codes: xr.DataArray, class_names, weights: xr.DataArray, *,
+def zone_area_table(codes: xr.DataArray, class_names, weights: xr.DataArray | None, *,
                     excluded=(), row_area=None, area_note: str | None = None) -> xr.Dataset:
     """Pixels and area [ha] of each class in each zone, and its share of the zone's classified area.
 
@@ -180,8 +187,8 @@ def zone_area_table(codes: xr.DataArray, class_names, weights: xr.DataArray, *,
         255 no-data value) are tallied as ``no_data``.
     class_names : sequence of str
         Name of each code.
-    weights : xarray.DataArray
-        (zone, y, x) from :func:`zone_weights`, on the same grid and chunks.
+    weights : xarray.DataArray or None
+        (zone, y, x) from :func:`zone_weights`, on the same grid; None: the whole map only.
     excluded : sequence of str
         Classes left out of the share's denominator as well as ``no_data`` (``insufficient_data``).
     row_area : (ny,) ndarray, optional
@@ -200,22 +207,26 @@ def zone_area_table(codes: xr.DataArray, class_names, weights: xr.DataArray, *,
         row_area, area_note = pixel_area_rows(codes)
     row_area = np.asarray(row_area, dtype=np.float64)
     codes = codes.transpose("y", "x")
-    w = weights.transpose("zone", "y", "x")
+    w = weights.transpose("zone", "y", "x") if weights is not None else None
     n = len(names) - 1
-    if codes.chunks is None and w.chunks is None:
-        total = _tally_block(np.asarray(codes.values), np.asarray(w.values), row_area, n_classes=n)[0, 0]
+    if codes.chunks is None and (w is None or w.chunks is None):
+        total = _tally_block(np.asarray(codes.values), None if w is None else np.asarray(w.values), row_area,
+                             n_classes=n)[0, 0]
     else:
         import dask.array as da
 
         c = codes.chunk() if codes.chunks is None else codes
-        wd = w.chunk({"zone": -1, "y": c.chunks[0], "x": c.chunks[1]}).data
         ad = da.from_array(row_area, chunks=(c.chunks[0],))
-        layers = w.sizes["zone"] + 2
-        parts = da.blockwise(_tally_block, "ijsln", c.data, "ij", wd, "zij", ad, "i",
+        if w is None:
+            args, layers = (None, None), 1
+        else:
+            args = (w.chunk({"zone": -1, "y": c.chunks[0], "x": c.chunks[1]}).data, "zij")
+            layers = w.sizes["zone"] + 2
+        parts = da.blockwise(_tally_block, "ijsln", c.data, "ij", *args, ad, "i",
                              new_axes={"s": 2, "l": layers, "n": n + 1}, adjust_chunks={"i": 1, "j": 1},
                              concatenate=True, dtype=np.float64, n_classes=n)
         total = parts.sum(axis=(0, 1))
-    zone = list(w["zone"].values[:-1]) + list(RESERVED_ZONES)
+    zone = ["whole_map"] if w is None else list(w["zone"].values[:-1]) + list(RESERVED_ZONES)
     pixels = xr.DataArray(total[0], dims=("zone", "class"), coords={"zone": zone, "class": names})
     area = xr.DataArray(total[1] / 1e4, dims=("zone", "class"), coords={"zone": zone, "class": names})
     counted = [c not in excluded and c != NO_DATA for c in names]

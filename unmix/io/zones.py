@@ -23,7 +23,7 @@ import numpy as np
 from ..cube.zones import RESERVED_ZONES, Zones
 from ..errors import UnknownNameError, ZoneFileError
 
-__all__ = ["read_zones", "file_sha256"]
+__all__ = ["read_zones", "file_sha256", "write_area_csvs"]
 
 
 def file_sha256(path: str | os.PathLike) -> str:
@@ -144,3 +144,16 @@ def read_zones(path: str | os.PathLike, *, name_field: str, crs=None) -> Zones:
     polygons = tuple(shapely.union_all(parts) if len(parts) > 1 else parts[0] for parts in merged.values())
     return Zones(names=tuple(merged), geometries=polygons, crs_wkt=target.to_wkt(), source=str(path),
                  sha256=file_sha256(path), repaired=repaired)
+
+
+def write_area_csvs(tables, products) -> list[Path]:
+    """Write area tables (``{path: pandas.DataFrame}``) as CSV into a claimed :class:`ProductSet`.
+
+    Hectares and percentages with 4 decimals; each file appears when the set is committed.
+    """
+    written = []
+    for path, frame in tables.items():
+        with products.writing(path) as tmp:
+            frame.to_csv(tmp, index=False, float_format="%.4f")
+        written.append(Path(path))
+    return written
