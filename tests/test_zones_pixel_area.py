@@ -83,3 +83,26 @@ def test_projected_product_in_feet():
     ds = _grid("EPSG:2263", 1000.0 + 10.0 * np.arange(3), 5000.0 - 10.0 * np.arange(3))
     area, _ = pixel_area_m2(ds)
     assert area == pytest.approx(100.0 * (1200 / 3937) ** 2, rel=1e-9)
+
+
+def test_rule_areas_of_a_geographic_trend_product():
+    import pandas as pd
+
+    from unmix.cube.trends import trend_cube
+    from unmix.trajectory import parse_rules
+
+    rng = np.random.default_rng(1)
+    time = pd.date_range("2015-01-01", periods=24, freq="QS")
+    f = (0.5 + rng.normal(0, 0.01, (24, 1, 6, 5))).astype(np.float32)
+    f[:, 0, :3] -= np.linspace(0, 0.3, 24)[:, None, None].astype(np.float32)  # rows 0-2 decline
+    lat = 60.0 - 0.01 * (np.arange(6) + 0.5)
+    ds = xr.Dataset({"fractions": (("time", "endmember", "y", "x"), f)}, coords={
+        "time": time, "endmember": ["gv"], "y": lat, "x": 10.0 + 0.01 * (np.arange(5) + 0.5),
+        "spatial_ref": ((), 0, {"crs_wkt": pyproj.CRS.from_epsg(4326).to_wkt()})})
+    out = trend_cube(ds, rules=parse_rules("loss = gv:decrease"))
+    mask = out["loss"].values == 1
+    assert mask[:3].all() and not mask[3:].any()
+    # reference: pyproj.Geod (Karney 2013) areas of the three rows of 5 cells
+    ref = sum(5 * _geod_cell(10.0, 10.01, 60.0 - 0.01 * (r + 1), 60.0 - 0.01 * r) for r in range(3))
+    assert float(out["rule_area"].sel(rule="loss")) == pytest.approx(ref / 1e4, rel=1e-6)
+    assert "geographic" in out["rule_area"].attrs["comment"]
