@@ -18,7 +18,7 @@ import xarray as xr
 
 from ..cube.cover import default_periods, from_to_frame, from_to_table, parse_periods, period_classes
 from ..cube.georef import georef_of, pixel_area_rows
-from ..cube.zones import ZoneRaster, area_table_frame, zone_area_table, zone_weights
+from ..cube.zones import ZoneRaster, zone_area_table, zone_weights
 from ..errors import InputError
 from ..io.rules import read_class_rules
 from ..io.zones import read_zones, write_area_csvs
@@ -26,9 +26,10 @@ from ..trajectory import FLAG_MEANINGS, FLAG_VALUES
 
 __all__ = ["zone_options", "ZoneRequest", "zone_csv_paths", "add_zone_tables", "write_zone_csvs", "echo_zones"]
 
-#: Variables the zone and cover-change tables add to the trend product.
+#: Variables and dimensions the zone and cover-change tables add to the trend product.
 ZONE_VARIABLES = ("trajectory_zone_area", "trajectory_zone_share", "rule_zone_area", "rule_zone_share",
-                  "cover_class", "cover_change_area")
+                  "cover_class", "cover_change_area", "zone", "period", "trajectory_class", "rule_state",
+                  "from_class", "to_class")
 
 
 def zone_options(func):

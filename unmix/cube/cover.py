@@ -24,7 +24,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from ..cover import NODATA_CLASS, ClassRule, class_names_of, dominant_class, rule_classes
+from ..cover import ClassRule, class_names_of, dominant_class, rule_classes
 from ..errors import InputError
 from .zones import NO_DATA, zone_area_table
 

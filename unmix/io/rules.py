@@ -15,8 +15,8 @@ from __future__ import annotations
 from collections.abc import Sequence
 from pathlib import Path
 
-from ..errors import InputError, LibraryFormatError
 from ..cover import ClassRule, check_class_names, parse_class_rules
+from ..errors import InputError, LibraryFormatError
 from ..trajectory import Rule, check_rule_names, parse_rules
 
 __all__ = ["read_rules", "read_class_rules"]
