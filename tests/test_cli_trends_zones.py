@@ -114,9 +114,12 @@ def test_cover_change_without_zones_uses_first_and_last_year(tmp_path, fractions
     (["--zones", "ZONES", "--zone-field", "nom"], "available: district"),
     (["--periods", "2030-2031,2032"], "holds no date"),
     (["--periods", "2016"], "two year ranges"),
+    (["--zones", "ZONES", "--zone-field", "district", "--rules", "RULES"], "clashes with a variable"),
 ])
 def test_bad_zone_options_are_one_line(tmp_path, fractions_nc, zones_geojson, capsys, args, match):
-    args = [str(zones_geojson) if a == "ZONES" else a for a in args]
+    rules = tmp_path / "rules.txt"
+    rules.write_text("zone = green_vegetation:decrease\n", encoding="utf-8")
+    args = [{"ZONES": str(zones_geojson), "RULES": str(rules)}.get(a, a) for a in args]
     code = main(["trends", str(fractions_nc), "--out", str(tmp_path / "o"), *args])
     _, err = capsys.readouterr()
     lines = [line for line in err.splitlines() if line.strip()]
