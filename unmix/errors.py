@@ -25,6 +25,7 @@ __all__ = [
     "ProductMismatchError",
     "SampleFormatError",
     "SampleReadError",
+    "ZoneFileError",
     "UnmixWarning",
     "CollinearityWarning",
     "WindowWarning",
@@ -102,6 +103,11 @@ class SampleFormatError(InputError):
 
 class SampleReadError(UnmixError, OSError):
     """A sample, strata or reference-points file cannot be found or read (the path is named)."""
+
+
+class ZoneFileError(InputError):
+    """A zones file cannot be used: missing, unreadable, empty, without a CRS, or with geometries that are
+    not polygons (file and feature named)."""
 
 
 class UnmixWarning(UserWarning):

@@ -17,6 +17,7 @@ from ..trajectory import Trajectory
 from ..trend import DEFAULT_CORRECTION, MannKendallCorrection
 from ._common import claim_products, echo_summary, out_dir_option, overwrite_option, writes_products
 from ._scheduler import dask_scheduler, scheduler_options
+from ._zones import ZoneRequest, add_zone_tables, echo_zones, write_zone_csvs, zone_csv_paths, zone_options
 
 __all__ = ["trends"]
 
@@ -43,11 +44,13 @@ __all__ = ["trends"]
 @click.option("--rules", "rules_file", type=click.Path(path_type=Path), default=None, metavar="FILE",
               help="Modification rules, one per line, e.g. "
                    "'desertification = green_vegetation:gradual_decrease & sand:gradual_increase'.")
+@zone_options
 @overwrite_option
 @scheduler_options
 @writes_products
 def trends(fractions: Path, out: Path, fdr_q: float, min_slope: float, min_step: float, correction: str,
-           season_scheme: str, min_valid: int, rules_file: Path | None, overwrite: bool,
+           season_scheme: str, min_valid: int, rules_file: Path | None, zones_file: Path | None, zone_field: str,
+           zone_pixels: str, cover_change: bool, periods: str | None, overwrite: bool,
            workers: int | None, scheduler: str | None) -> None:
     """Label each pixel's fraction series per endmember and write OUT/trends.nc.
 
@@ -56,12 +59,15 @@ def trends(fractions: Path, out: Path, fdr_q: float, min_slope: float, min_step:
     change point after FDR control, a single step fits better than a line by BIC, and
     |step| >= --min-step; the change date is the first date after the break), insufficient_data
     (fewer than --min-valid dates). The product also holds Sen slopes [1/yr] with 95 % intervals,
-    p- and q-values, and one map per rule with its area [ha].
+    p- and q-values, and one map per rule with its area [ha]. --zones adds per-zone area tables;
+    --cover-change / --periods a cover class map per period and a from-to table [ha] (also as CSV).
     """
     started = _time.perf_counter()
     target = Path(out) / "trends.nc"
     # claimed before the input is read: a busy, existing or unwritable product stops the run here
-    products = claim_products([target], overwrite)
+    request = ZoneRequest(zones_file, zone_field, zone_pixels, cover_change, periods)
+    csvs = zone_csv_paths(out, request, with_rules=rules_file is not None)
+    products = claim_products([target, *csvs.values()], overwrite)
     # whole time series per chunk straight from the file (no rechunk of single-date chunks), file's y/x chunks
     ds = open_product(fractions, chunks={"time": -1})
     if "fractions" not in ds.data_vars or "endmember" not in ds.dims:
@@ -85,6 +91,7 @@ def trends(fractions: Path, out: Path, fdr_q: float, min_slope: float, min_step:
     ledger_vars = [k for k, v in ds.data_vars.items() if "ledger_name" in v.attrs]
     if ledger_vars:
         result = result.assign({k: ds[k].load() for k in ledger_vars})
+    zone_parameters = add_zone_tables(result, ds["fractions"], request, rules, rules_file) if request.active else {}
     parameters = {
         "fdr_q": fdr_q,
         "min_slope": min_slope,
@@ -93,15 +100,18 @@ def trends(fractions: Path, out: Path, fdr_q: float, min_slope: float, min_step:
         "correction": correction,
         "season_scheme": season_scheme,
         "rules": {r.name: r.text for r in rules},
+        **zone_parameters,
     }
     command = " ".join(
         ["unmix trends", str(fractions), f"--out {out}", f"--fdr-q {fdr_q}", f"--min-slope {min_slope}",
          f"--min-step {min_step}", f"--correction {correction}", f"--season-scheme {season_scheme}",
          f"--min-valid {min_valid}"]
         + ([f"--rules {rules_file}"] if rules_file is not None else [])
+        + request.command_words()
         + (["--overwrite"] if overwrite else [])
     )
-    inputs = [str(fractions)] + ([str(rules_file)] if rules_file is not None else [])
+    inputs = ([str(fractions)] + ([str(rules_file)] if rules_file is not None else [])
+              + ([str(zones_file)] if zones_file is not None else []))
     with dask_scheduler(workers=workers, scheduler=scheduler) as run:
         # xarray takes a distributed lock for the NetCDF write, which needs the client to be current
         current = run.client.as_current() if run.client is not None else contextlib.nullcontext()
@@ -118,9 +128,15 @@ def trends(fractions: Path, out: Path, fdr_q: float, min_slope: float, min_step:
                 products=products,
             )
         where = run.describe()
+    if csvs:
+        with open_product(products.staged(target)) as written:
+            write_zone_csvs(written, csvs, products)
     ds.close()
     products.commit()
     _summarise(target, ds, rules, started, where, fdr_q, correction, season_scheme)
+    if request.active:
+        with open_product(target) as written:
+            echo_zones(written, request, csvs)
 
 
 def _summarise(target: Path, ds, rules, started: float, where: str, fdr_q, correction, season_scheme) -> None:

@@ -9,7 +9,7 @@ import numpy as np
 import xarray as xr
 
 from ..trajectory import FLAG_MEANINGS, FLAG_VALUES, Rule, evaluate_rules
-from .georef import pixel_area_m2
+from .georef import pixel_area_rows
 
 
 def _rule_block(codes, *, rule, endmembers):
@@ -55,7 +55,9 @@ def _add_rules(result: xr.Dataset, rules: list[Rule], endmembers: list[str], laz
     codes = result["trajectory"]
     if lazy:
         codes = codes.chunk({"endmember": -1})
-    area_m2, area_note = pixel_area_m2(result)
+    row_area, area_note = pixel_area_rows(result)
+    area_m2 = xr.DataArray(row_area, dims="y")
+    counts_m2 = []
     counts, valids = [], []
     for rule in rules:
         mask = xr.apply_ufunc(
@@ -75,21 +77,24 @@ def _add_rules(result: xr.Dataset, rules: list[Rule], endmembers: list[str], laz
         }
         count = (mask == 1).sum(("y", "x"))
         valid = (mask <= 1).sum(("y", "x"))
+        area = ((mask == 1) * area_m2).sum(("y", "x"), skipna=False)
         if not lazy:
             c, v = int(count), int(valid)
             mask.attrs.update(
                 pixel_count=c,
-                area_ha=c * area_m2 / 1e4,
+                area_ha=float(area) / 1e4,
                 share_of_valid=(c / v) if v else float("nan"),
             )
         result[rule.name] = mask
         counts.append(count)
         valids.append(valid)
+        counts_m2.append(area)
     names = [r.name for r in rules]
     count = xr.concat(counts, dim="rule").assign_coords(rule=names).astype(np.int64)
     valid = xr.concat(valids, dim="rule").assign_coords(rule=names).astype(np.int64)
     result["rule_pixels"] = count.assign_attrs(long_name="pixels where the rule is true", units="1")
-    result["rule_area"] = (count * area_m2 / 1e4).assign_attrs(
+    area = xr.concat(counts_m2, dim="rule").assign_coords(rule=names)
+    result["rule_area"] = (area / 1e4).assign_attrs(
         long_name="area where the rule is true", units="ha", comment=area_note
     )
     result["rule_share"] = (count / valid.where(valid > 0)).assign_attrs(

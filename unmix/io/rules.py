@@ -5,6 +5,9 @@ Example file::
     # land-cover modification rules for the trends product
     desertification = green_vegetation:gradual_decrease & sand:gradual_increase
     canopy_thinning = green_vegetation:decrease & (shade:increase | dry_vegetation:increase)
+    # cover classes per period (unmix.cover.parse_class_rules): first matching line wins
+    class woodland = green_vegetation >= 0.5
+    class bare = sand >= 0.6 & green_vegetation < 0.2
 """
 
 from __future__ import annotations
@@ -12,10 +15,11 @@ from __future__ import annotations
 from collections.abc import Sequence
 from pathlib import Path
 
+from ..cover import ClassRule, check_class_names, parse_class_rules
 from ..errors import InputError, LibraryFormatError
 from ..trajectory import Rule, check_rule_names, parse_rules
 
-__all__ = ["read_rules"]
+__all__ = ["read_rules", "read_class_rules"]
 
 
 def read_rules(path, endmembers: Sequence[str] | None = None) -> list[Rule]:
@@ -50,8 +54,49 @@ def read_rules(path, endmembers: Sequence[str] | None = None) -> list[Rule]:
     ['loss']
     """
     path = Path(path)
+    text = _read_text(path)
+    rules = parse_rules(text, source=str(path))
+    if not rules and not parse_class_rules(text, source=str(path)):
+        raise InputError(
+            f"rules file {path} holds no rule; write lines such as "
+            "'loss = green_vegetation:decrease & soil:increase'"
+        )
+    if endmembers is not None:
+        check_rule_names(rules, endmembers)
+    return rules
+
+
+def read_class_rules(path, endmembers: Sequence[str] | None = None) -> list[ClassRule]:
+    """The cover-class lines (``class name = endmember >= 0.5 & ...``) of a rules file.
+
+    Parameters
+    ----------
+    path : str or Path
+        The rules file (:func:`read_rules`).
+    endmembers : sequence of str, optional
+        Endmember names of the fractions product; every name a class line uses must be among them.
+
+    Returns
+    -------
+    list of ClassRule
+        In file order; empty when the file holds no class line.
+
+    Raises
+    ------
+    InputError, LibraryFormatError, UnknownNameError
+        As :func:`read_rules`.
+    """
+    path = Path(path)
+    rules = parse_class_rules(_read_text(path), source=str(path))
+    if endmembers is not None:
+        check_class_names(rules, endmembers)
+    return rules
+
+
+def _read_text(path: Path) -> str:
+    path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8")
+        return path.read_text(encoding="utf-8")
     except FileNotFoundError:
         raise InputError(f"rules file {path} does not exist; check the path given to --rules") from None
     except IsADirectoryError:
@@ -62,12 +107,3 @@ def read_rules(path, endmembers: Sequence[str] | None = None) -> list[Rule]:
         ) from None
     except OSError as exc:
         raise InputError(f"rules file {path} cannot be read ({exc.strerror}); check its permissions") from None
-    rules = parse_rules(text, source=str(path))
-    if not rules:
-        raise InputError(
-            f"rules file {path} holds no rule; write lines such as "
-            "'loss = green_vegetation:decrease & soil:increase'"
-        )
-    if endmembers is not None:
-        check_rule_names(rules, endmembers)
-    return rules

@@ -102,6 +102,7 @@ class Rule:
 
 _TOKEN = re.compile(r"\s*(?:(?P<name>[A-Za-z_][A-Za-z0-9_.\-]*)|(?P<op>[&|!():]))")
 _RULE_NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_]*\Z")
+_CLASS_LINE = re.compile(r"\s*class\s+(?=[A-Za-z_])")
 
 
 class _Parser:
@@ -198,7 +199,8 @@ def parse_rules(text: str, *, source: str = "<string>") -> list[Rule]:
         desertification = green_vegetation:gradual_decrease & sand:gradual_increase
         canopy_thinning = green_vegetation:decrease & (shade:increase | dry_vegetation:increase)
 
-    A rule is ``NAME = EXPRESSION``. ``NAME`` is a letter or underscore then letters, digits,
+    Lines that start with the word ``class`` define cover classes and are skipped here
+    (:func:`unmix.cover.parse_class_rules`). A rule is ``NAME = EXPRESSION``. ``NAME`` is a letter or underscore then letters, digits,
     underscores. The expression combines terms ``endmember:state`` with ``!`` (not, binds tightest),
     ``&`` (and) and ``|`` (or, loosest) and parentheses. A state is one of the trajectory labels
     (``stable``, ``gradual_increase``, ``gradual_decrease``, ``abrupt_increase``,
@@ -231,7 +233,7 @@ def parse_rules(text: str, *, source: str = "<string>") -> list[Rule]:
     names: set[str] = set()
     for lineno, raw in enumerate(text.splitlines(), start=1):
         line = raw.split("#", 1)[0]
-        if not line.strip():
+        if not line.strip() or _CLASS_LINE.match(line):  # cover-class lines: unmix.cover.parse_class_rules
             continue
         if "=" not in line:
             col = len(line) - len(line.lstrip())
