@@ -11,7 +11,8 @@ import numpy as np
 
 from ..cube.trends import SeasonScheme, trend_cube
 from ..errors import InputError
-from ..io.products import open_product, write_netcdf
+from ..io.products import open_product, provenance_attrs, write_netcdf
+from ..io.products.trend_cogs import trend_cog_paths, write_trend_cogs
 from ..io.rules import read_rules
 from ..trajectory import Trajectory
 from ..trend import DEFAULT_CORRECTION, MannKendallCorrection
@@ -43,11 +44,16 @@ __all__ = ["trends"]
 @click.option("--rules", "rules_file", type=click.Path(path_type=Path), default=None, metavar="FILE",
               help="Modification rules, one per line, e.g. "
                    "'desertification = green_vegetation:gradual_decrease & sand:gradual_increase'.")
+@click.option("--cog", is_flag=True, default=False,
+              help="Also write Cloud-Optimized GeoTIFFs for a GIS: OUT/trajectory.tif (uint8 codes), slope.tif "
+                   "[1/yr], q_value.tif, change_date.tif (decimal year, e.g. 2019.5) with one band per endmember, "
+                   "and rule_<name>.tif per rule (0 false, 1 true, 255 insufficient data); category names and "
+                   "colours of the categorical maps in <file>.aux.xml beside them.")
 @overwrite_option
 @scheduler_options
 @writes_products
 def trends(fractions: Path, out: Path, fdr_q: float, min_slope: float, min_step: float, correction: str,
-           season_scheme: str, min_valid: int, rules_file: Path | None, overwrite: bool,
+           season_scheme: str, min_valid: int, rules_file: Path | None, cog: bool, overwrite: bool,
            workers: int | None, scheduler: str | None) -> None:
     """Label each pixel's fraction series per endmember and write OUT/trends.nc.
 
@@ -56,7 +62,8 @@ def trends(fractions: Path, out: Path, fdr_q: float, min_slope: float, min_step:
     change point after FDR control, a single step fits better than a line by BIC, and
     |step| >= --min-step; the change date is the first date after the break), insufficient_data
     (fewer than --min-valid dates). The product also holds Sen slopes [1/yr] with 95 % intervals,
-    p- and q-values, and one map per rule with its area [ha].
+    p- and q-values, and one map per rule with its area [ha]. With --cog the maps also come as
+    GeoTIFFs, written and put in place together with trends.nc (all or none).
     """
     started = _time.perf_counter()
     target = Path(out) / "trends.nc"
@@ -71,6 +78,8 @@ def trends(fractions: Path, out: Path, fdr_q: float, min_slope: float, min_step:
         )
     endmembers = [str(v) for v in ds["endmember"].values]
     rules = read_rules(rules_file, endmembers) if rules_file is not None else []
+    cog_paths = trend_cog_paths(out, [r.name for r in rules]) if cog else []
+    products.claim_more(cog_paths)
     result = trend_cube(
         ds,
         q=fdr_q,
@@ -95,6 +104,7 @@ def trends(fractions: Path, out: Path, fdr_q: float, min_slope: float, min_step:
          f"--min-step {min_step}", f"--correction {correction}", f"--season-scheme {season_scheme}",
          f"--min-valid {min_valid}"]
         + ([f"--rules {rules_file}"] if rules_file is not None else [])
+        + (["--cog"] if cog else [])
         + (["--overwrite"] if overwrite else [])
     )
     inputs = [str(fractions)] + ([str(rules_file)] if rules_file is not None else [])
@@ -115,7 +125,16 @@ def trends(fractions: Path, out: Path, fdr_q: float, min_slope: float, min_step:
             )
         where = run.describe()
     ds.close()
-    products.commit()
+    if cog_paths:
+        from ..report.palettes import RULE_COLOURS, TRAJECTORY_PALETTE
+
+        product = open_product(products.staged(target))
+        tags = provenance_attrs(command=command, parameters=parameters, input_files=inputs,
+                                endmember_names=endmembers, title="unmix trends")
+        write_trend_cogs(product, out, rule_names=[r.name for r in rules], tags=tags, products=products,
+                         overwrite=overwrite, colours={"trajectory": TRAJECTORY_PALETTE, "rule": RULE_COLOURS})
+        product.close()
+    products.commit()  # trends.nc and its GeoTIFFs appear together, or none of them
     _summarise(target, ds, rules, started, where, fdr_q, correction, season_scheme)
 
 
