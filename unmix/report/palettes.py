@@ -31,6 +31,7 @@ __all__ = [
     "NOT_SIGNIFICANT_COLOUR",
     "RULE_COLOURS",
     "SEQUENTIAL_CMAP",
+    "SERIES_STYLES",
     "TRAJECTORY_PALETTE",
     "lightness",
 ]
@@ -98,3 +99,14 @@ def lightness(colours: Iterable) -> np.ndarray:
     y = linear @ np.array([0.2126, 0.7152, 0.0722])
     eps = 216 / 24389
     return np.where(y > eps, 116 * np.cbrt(y) - 16, 24389 / 27 * y)
+
+#: Lines of time-series plots: Tol's bright scheme, each with its own marker and dash so that the
+#: series stay apart in grey print.
+SERIES_STYLES = [
+    {"color": "#4477AA", "marker": "o", "linestyle": "-"},
+    {"color": "#EE6677", "marker": "s", "linestyle": "--"},
+    {"color": "#228833", "marker": "^", "linestyle": "-."},
+    {"color": "#CCBB44", "marker": "D", "linestyle": ":"},
+    {"color": "#66CCEE", "marker": "v", "linestyle": (0, (5, 1))},
+    {"color": "#AA3377", "marker": "P", "linestyle": (0, (3, 1, 1, 1, 1, 1))},
+]

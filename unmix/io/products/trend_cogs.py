@@ -131,14 +131,9 @@ def _rgba(colour: str) -> tuple[int, int, int, int]:
 
 def _decimal_year_map(dates: np.ndarray) -> np.ndarray:
     """datetime64 map -> float32 decimal years, NaN where NaT."""
-    from ...dates import decimal_years
+    from ...dates import decimal_years_or_nan
 
-    dates = np.asarray(dates)
-    out = np.full(dates.shape, np.nan, dtype="float64")
-    have = ~np.isnat(dates)
-    if have.any():
-        out[have] = decimal_years(dates[have])
-    return out.astype("float32")
+    return decimal_years_or_nan(dates).astype("float32")
 
 
 def write_trend_cogs(
