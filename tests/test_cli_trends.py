@@ -200,7 +200,7 @@ def test_cog_maps_equal_the_product(tmp_path, fractions_nc, rules_txt, capsys):
     import rasterio.shutil
 
     from unmix.dates import decimal_years
-    from unmix.report.palettes import RULE_COLOURS
+    from unmix.report.palettes import RULE_COLOURS, TRAJECTORY_PALETTE
 
     out_dir = tmp_path / "out"
     code = main(["trends", str(fractions_nc), "--out", str(out_dir), "--rules", str(rules_txt), "--cog"])
@@ -248,6 +248,10 @@ def test_cog_maps_equal_the_product(tmp_path, fractions_nc, rules_txt, capsys):
             np.testing.assert_array_equal(m["values"][0], ds[rule].values)
             assert m["tags"]["flag_values"] == "0 1 255"
             assert m["tags"]["flag_meanings"] == "false true insufficient_data"
+    with rasterio.open(out_dir / "trajectory.tif") as src:  # band 1's colour table from the .aux.xml
+        cmap = src.colormap(1)
+        assert src.colorinterp[1] != rasterio.enums.ColorInterp.palette  # no half-paletted second band
+    assert cmap[3] == tuple(int(TRAJECTORY_PALETTE["abrupt_increase"][i:i + 2], 16) for i in (1, 3, 5)) + (255,)
     with rasterio.open(out_dir / "rule_greening_loss.tif") as src:  # palette inside the TIFF, read by GDAL
         cmap = src.colormap(1)
     assert cmap[1] == tuple(int(RULE_COLOURS["true"][i:i + 2], 16) for i in (1, 3, 5)) + (255,)

@@ -253,3 +253,19 @@ def test_rmse_share_counts_pixels_above_the_limit(products):
     have = np.isfinite(reference)
     assert share == pytest.approx((reference[have] > 0.02).mean())
     assert "%" in maps.rmse_map(fr["rmse"], 0.02).axes[0].get_title()
+
+
+def test_large_maps_are_thinned_for_display_only():
+    from unmix.report._mapping import DISPLAY_LIMIT
+
+    grid = _grid(3100, 40, 30.0, CRS)
+    grid[:, ::2] = 0  # every other column without data
+    fig = maps.valid_count_map(grid)
+    ax = next(a for a in fig.axes if a.get_images())
+    step = int(np.ceil(3100 / DISPLAY_LIMIT))  # 3: the smallest step that fits
+    shown = ax.get_images()[0]
+    assert shown.get_array().shape == (int(np.ceil(40 / step)), int(np.ceil(3100 / step)))
+    # every step-th pixel (north-up grid): its no-data mask is the thinned one
+    np.testing.assert_array_equal(np.ma.getmaskarray(shown.get_array()), grid.values[::step, ::step] == 0)
+    # the drawn extent is still the whole raster (pixel edges in metres)
+    np.testing.assert_allclose(shown.get_extent(), [300000.0, 300000.0 + 3100 * 30, 5000000.0 - 40 * 30, 5000000.0])

@@ -135,17 +135,19 @@ def trends(fractions: Path, out: Path, fdr_q: float, min_slope: float, min_step:
                          overwrite=overwrite, colours={"trajectory": TRAJECTORY_PALETTE, "rule": RULE_COLOURS})
         product.close()
     products.commit()  # trends.nc and its GeoTIFFs appear together, or none of them
-    _summarise(target, ds, rules, started, where, fdr_q, correction, season_scheme)
+    _summarise(target, ds, rules, started, where, fdr_q, correction, season_scheme, len(cog_paths))
 
 
-def _summarise(target: Path, ds, rules, started: float, where: str, fdr_q, correction, season_scheme) -> None:
+def _summarise(target: Path, ds, rules, started: float, where: str, fdr_q, correction, season_scheme,
+               n_cog: int = 0) -> None:
     written = open_product(target)
     codes = written["trajectory"].values  # (endmember, y, x) int8: small next to the cube
     endmembers = [str(v) for v in written["endmember"].values]
     ny, nx = written.sizes["y"], written.sizes["x"]
     test = f"seasonal Kendall ({season_scheme})" if season_scheme != "none" else f"Mann-Kendall ({correction})"
     echo_summary(
-        f"unmix trends: wrote {target} - {len(endmembers)} endmembers x {ny} x {nx} pixels x "
+        f"unmix trends: wrote {target}{f' (+{n_cog} GeoTIFF and .aux.xml files)' if n_cog else ''} - "
+        f"{len(endmembers)} endmembers x {ny} x {nx} pixels x "
         f"{ds.sizes['time']} dates, {test}, FDR q = {fdr_q}, in {_time.perf_counter() - started:.1f} s on {where}"
     )
     labels = [m.label for m in Trajectory]

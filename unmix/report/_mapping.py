@@ -17,7 +17,7 @@ from ..cube.georef import georef_of
 from .palettes import NODATA_COLOUR, NODATA_HATCH
 
 __all__ = ["MapFrame", "crs_caption", "decorate", "draw_nodata", "map_frame", "nice_length", "nodata_handle",
-           "north_up", "rgba_image"]
+           "north_up", "rgba_image", "DISPLAY_LIMIT"]
 
 
 @dataclass(frozen=True)
@@ -70,8 +70,22 @@ def _crs_name(wkt: str) -> str:
     return match.group(1) if match else "unnamed CRS"
 
 
-def north_up(da: xr.DataArray, dtype=float) -> np.ndarray:
-    """Values of a (..., y, x) array (as ``dtype``; None keeps it) with the first row the northernmost."""
+#: Longest side [pixels] of a map as drawn; larger maps are thinned (every k-th pixel) for display.
+DISPLAY_LIMIT = 1500
+
+
+def north_up(da: xr.DataArray, dtype=float, limit: int | None = DISPLAY_LIMIT) -> np.ndarray:
+    """Values of a (..., y, x) array (as ``dtype``; None keeps it) with the first row the northernmost.
+
+    With ``limit``, a map longer than ``limit`` pixels is read at every k-th row and column (k the
+    smallest step that fits), which is what a figure a few inches wide can show anyway; statistics
+    are computed on the full map by the callers, never on the thinned one.
+    """
+    step = 1
+    if limit is not None:
+        step = max(1, math.ceil(max(da.sizes["y"], da.sizes["x"]) / limit))
+    if step > 1:
+        da = da.isel(y=slice(None, None, step), x=slice(None, None, step))
     values = np.asarray(da.values, dtype=dtype)
     y = np.asarray(da["y"].values)
     if y.size > 1 and y[0] < y[-1]:
@@ -134,7 +148,7 @@ def decorate(ax: Axes, frame: MapFrame, title: str | None = None) -> None:
 
 def rgba_image(codes: np.ndarray, colours: dict[int, str]) -> np.ndarray:
     """(y, x) integer codes -> (y, x, 4) RGBA floats; codes without a colour are transparent."""
-    out = np.zeros((*codes.shape, 4))
+    out = np.zeros((*codes.shape, 4), dtype=np.float32)
     for code, colour in colours.items():
         out[codes == code] = to_rgba(colour)
     return out
@@ -153,7 +167,7 @@ def draw_nodata(ax: Axes, mask: np.ndarray, frame: MapFrame, *, zorder: float = 
     big = np.repeat(np.repeat(mask, k, axis=0), k, axis=1)
     rows, cols = np.indices(big.shape)
     stripe = ((rows + cols) % 8) < 2
-    image = np.zeros((*big.shape, 4))
+    image = np.zeros((*big.shape, 4), dtype=np.float32)
     image[big] = to_rgba(NODATA_COLOUR)
     image[big & stripe] = to_rgba(NODATA_HATCH[0])
     ax.imshow(image, extent=frame.extent, interpolation="nearest", zorder=zorder, origin="upper",

@@ -206,21 +206,30 @@ def valid_count_map(valid_count: xr.DataArray, n_dates: int | None = None) -> Fi
     return fig
 
 
+def _median_rmse(rmse: xr.DataArray) -> xr.DataArray:
+    if "time" not in rmse.dims:
+        return rmse
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # pixels without data stay NaN
+        return rmse.median("time", skipna=True).compute()
+
+
 def rmse_share(rmse: xr.DataArray, limit: float) -> tuple[np.ndarray, float]:
     """Per-pixel median RMSE over the dates and the share of pixels (with data) whose median exceeds ``limit``.
 
     Returns
     -------
-    median : (y, x) ndarray, north up
+    median : (y, x) ndarray, north up, full resolution
     share : float
         0..1; NaN when no pixel has data.
     """
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)
-        median = north_up(rmse.median("time", skipna=True) if "time" in rmse.dims else rmse)
-    have = np.isfinite(median)
-    share = float((median[have] > limit).mean()) if have.any() else float("nan")
-    return median, share
+    median = north_up(_median_rmse(rmse), limit=None)
+    return median, _share_above(median, limit)
+
+
+def _share_above(values: np.ndarray, limit: float) -> float:
+    have = np.isfinite(values)
+    return float((values[have] > limit).mean()) if have.any() else float("nan")
 
 
 def rmse_map(rmse: xr.DataArray, limit: float = 0.025) -> Figure:
@@ -233,7 +242,9 @@ def rmse_map(rmse: xr.DataArray, limit: float = 0.025) -> Figure:
     limit : float
         RMSE above which the endmembers do not describe a pixel well [reflectance].
     """
-    median, share = rmse_share(rmse, limit)
+    per_pixel = _median_rmse(rmse)
+    share = _share_above(north_up(per_pixel, limit=None), limit)
+    median = north_up(per_pixel)
     frame = map_frame(rmse)
     top = max(2 * limit, float(np.nanpercentile(median, 99)) if np.isfinite(median).any() else 2 * limit)
     fig = Figure(figsize=(5.0, 4.2), layout="constrained")

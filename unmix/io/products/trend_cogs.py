@@ -22,10 +22,12 @@ single-band paletted image (GDAL turns the second band of a paletted file into a
 * every categorical file carries CF-style tags ``flag_values`` / ``flag_meanings`` (dataset and
   band metadata, inside the TIFF, read by any GDAL-based GIS as metadata);
 * a single-band rule map also carries its colour table inside the TIFF (palette);
-* the category names and colour table of every band go into GDAL's auxiliary metadata file beside
-  the image, ``<file>.tif.aux.xml`` (``PAMDataset`` / ``PAMRasterBand`` / ``CategoryNames`` /
-  ``ColorTable``), which GDAL-based software (QGIS, rasterio) reads when it opens the image. It is
-  a product of the set like the images: written and committed with them.
+* the category names of every band go into GDAL's auxiliary metadata file beside the image,
+  ``<file>.tif.aux.xml`` (``PAMDataset`` / ``PAMRasterBand`` / ``CategoryNames``), which GDAL-based
+  software (QGIS, rasterio) reads when it opens the image, with the colour table of band 1
+  (``ColorTable``): GDAL's GeoTIFF driver (3.10) ignores an auxiliary colour table of a further band
+  but would still mark that band as paletted, so the other endmembers' bands have names and no
+  table. The ``.aux.xml`` is a product of the set like the images: written and committed with them.
 
 A raster attribute table is not written (category names and colours cover what one would hold).
 """
@@ -79,15 +81,15 @@ def trend_cog_paths(out: str | os.PathLike, rule_names: Sequence[str]) -> list[P
     return [out / n for n in images] + [out / f"{n}.aux.xml" for n in _categorical_names(rule_names)]
 
 
-def pam_xml(bands: Sequence[tuple[Mapping[int, str], Mapping[int, tuple[int, int, int, int]]]]) -> str:
+def pam_xml(bands: Sequence[tuple[Mapping[int, str], Mapping[int, tuple[int, int, int, int]] | None]]) -> str:
     """GDAL auxiliary metadata (``.aux.xml``) giving each band its category names and colour table.
 
     Parameters
     ----------
     bands : sequence of (names, colours)
-        Per band: code -> category name, and code -> (red, green, blue, alpha) 0..255. Codes without
-        a name get an empty one and codes without a colour a transparent entry (GDAL indexes both
-        lists by the code).
+        Per band: code -> category name, and code -> (red, green, blue, alpha) 0..255 or None (no
+        colour table). Codes without a name get an empty one and codes without a colour a transparent
+        entry (GDAL indexes both lists by the code).
 
     Returns
     -------
@@ -96,16 +98,17 @@ def pam_xml(bands: Sequence[tuple[Mapping[int, str], Mapping[int, tuple[int, int
     """
     lines = ["<PAMDataset>"]
     for band, (names, colours) in enumerate(bands, start=1):
-        top = max([*names, *colours])
+        top = max([*names, *(colours or {})])
         lines.append(f'  <PAMRasterBand band="{band}">')
         lines.append("    <CategoryNames>")
         lines += [f"      <Category>{escape(names.get(code, ''))}</Category>" for code in range(top + 1)]
         lines.append("    </CategoryNames>")
-        lines.append("    <ColorTable>")
-        for code in range(top + 1):
-            r, g, b, a = colours.get(code, (0, 0, 0, 0))
-            lines.append(f'      <Entry c1="{r}" c2="{g}" c3="{b}" c4="{a}"/>')
-        lines.append("    </ColorTable>")
+        if colours is not None:
+            lines.append("    <ColorTable>")
+            for code in range(top + 1):
+                r, g, b, a = colours.get(code, (0, 0, 0, 0))
+                lines.append(f'      <Entry c1="{r}" c2="{g}" c3="{b}" c4="{a}"/>')
+            lines.append("    </ColorTable>")
         lines.append("  </PAMRasterBand>")
     lines.append("</PAMDataset>")
     return "\n".join(lines) + "\n"
@@ -198,7 +201,10 @@ def write_trend_cogs(
               tags=var_tags(traj, nodata_meaning=f"{TREND_COG_NODATA}: not used (every pixel has a code; "
                                                  "too few dates is the insufficient_data code)"), **common)
     table = {code: _rgba(colours["trajectory"][name]) for code, name in flags.items()}
-    _write_pam(out / "trajectory.tif.aux.xml", pam_xml([(flags, table)] * len(endmembers)), products)
+    # GDAL's GeoTIFF driver takes an auxiliary colour table for band 1 only (further bands would be marked
+    # as paletted without a table): band 1 gets it, every band its category names
+    bands = [(flags, table if i == 0 else None) for i in range(len(endmembers))]
+    _write_pam(out / "trajectory.tif.aux.xml", pam_xml(bands), products)
     written += [path, out / "trajectory.tif.aux.xml"]
 
     for name, (units, resampling) in _FLOAT_MAPS.items():
