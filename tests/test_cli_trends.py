@@ -173,3 +173,133 @@ def test_claimed_output_stops_the_run_until_its_holder_is_gone(tmp_path, fractio
     claim.write_text(json.dumps({"host": socket.gethostname(), "pid": gone.pid, "started": "2026-01-01T00:00:00Z"}))
     assert main(["trends", str(fractions_nc), "--out", str(out_dir)]) == 0, capsys.readouterr().err
     assert sorted(p.name for p in out_dir.iterdir()) == ["trends.nc"]
+
+
+# --------------------------------------------------------------------------------------------------
+# --cog: the maps as GeoTIFFs, in the same product set as trends.nc
+
+
+def _read_cog(path):
+    import rasterio
+    import tifffile
+
+    with tifffile.TiffFile(path) as tif:  # tifffile as a second reader of the TIFF structure
+        tiled = all(page.is_tiled for page in tif.pages)
+    with rasterio.open(path) as src:
+        return {"values": src.read(), "nodata": src.nodata, "descriptions": src.descriptions, "crs": src.crs,
+                "transform": src.transform, "tags": src.tags(), "band_tags": [src.tags(b) for b in src.indexes],
+                "units": src.units, "layout": src.tags(ns="IMAGE_STRUCTURE").get("LAYOUT"),
+                "tiled": tiled,
+                "dtypes": src.dtypes}
+
+
+def test_cog_maps_equal_the_product(tmp_path, fractions_nc, rules_txt, capsys):
+    from xml.etree import ElementTree
+
+    import rasterio
+    import rasterio.shutil
+
+    from unmix.dates import decimal_years
+    from unmix.report.palettes import RULE_COLOURS, TRAJECTORY_PALETTE
+
+    out_dir = tmp_path / "out"
+    code = main(["trends", str(fractions_nc), "--out", str(out_dir), "--rules", str(rules_txt), "--cog"])
+    assert code == 0, capsys.readouterr().err
+    rules = ["greening_loss", "sand_encroachment"]
+    cats = ["trajectory.tif", *(f"rule_{r}.tif" for r in rules)]
+    assert sorted(p.name for p in out_dir.iterdir()) == sorted(
+        ["trends.nc", "slope.tif", "q_value.tif", "change_date.tif", *cats, *(c + ".aux.xml" for c in cats)])
+    with xr.open_dataset(out_dir / "trends.nc", decode_coords="all") as ds:  # xarray as the outside reader
+        crs = rasterio.crs.CRS.from_wkt(ds["spatial_ref"].attrs["crs_wkt"])
+        gt = [float(v) for v in ds["spatial_ref"].attrs["GeoTransform"].split()]
+        transform = rasterio.Affine.from_gdal(*gt)
+        maps = {name: _read_cog(out_dir / name) for name in ("trajectory.tif", "slope.tif", "q_value.tif",
+                                                              "change_date.tif", *cats[1:])}
+        for name, m in maps.items():  # GDAL (rasterio) reads georeferencing, nodata and the COG layout marker
+            assert m["crs"] == crs and m["transform"].almost_equals(transform), name
+            assert m["layout"] == "COG" and m["tiled"], name
+            assert "unmix trends" in m["tags"]["command"] and m["tags"]["unmix_version"], name
+        for name in ("trajectory.tif", "slope.tif", "q_value.tif", "change_date.tif"):
+            assert maps[name]["descriptions"] == tuple(EMS), name
+            assert [t["endmember"] for t in maps[name]["band_tags"]] == EMS
+        traj = maps["trajectory.tif"]
+        assert traj["dtypes"] == ("uint8",) * 2 and traj["nodata"] == 255
+        np.testing.assert_array_equal(traj["values"], ds["trajectory"].values)  # codes unchanged, no 255 written
+        assert traj["tags"]["flag_values"] == "0 1 2 3 4 5"
+        assert traj["tags"]["flag_meanings"] == ds["trajectory"].attrs["flag_meanings"]
+        assert traj["band_tags"][1]["flag_meanings"] == ds["trajectory"].attrs["flag_meanings"]
+        for name in ("slope", "q_value"):
+            m = maps[f"{name}.tif"]
+            assert m["dtypes"] == ("float32",) * 2 and np.isnan(m["nodata"])
+            # NaN in trends.nc is NaN (= nodata) in the GeoTIFF, every other value is equal
+            np.testing.assert_array_equal(m["values"], ds[name].values.astype(np.float32))
+            assert np.isnan(m["values"][:, 5, 4]).all()
+        assert maps["slope.tif"]["units"] == ("1/yr", "1/yr") and maps["slope.tif"]["tags"]["units"] == "1/yr"
+        change = maps["change_date.tif"]
+        dates = ds["change_date"].values
+        assert (np.isnat(dates) == np.isnan(change["values"])).all()  # NaT <-> NaN (nodata)
+        # decimal years (unmix.dates.decimal_years) stored as float32: 2019-01-01 -> 2019.0 (fixture truth)
+        np.testing.assert_allclose(change["values"][~np.isnat(dates)], decimal_years(dates[~np.isnat(dates)]),
+                                   rtol=0, atol=2.5e-4)  # float32 spacing at 2019 is 2**-12 (IEEE 754)
+        assert (change["values"][1, 3:5, :2] == 2019.0).all()
+        for rule in rules:
+            m = maps[f"rule_{rule}.tif"]
+            assert m["descriptions"] == (rule,) and m["nodata"] == 255 and m["dtypes"] == ("uint8",)
+            np.testing.assert_array_equal(m["values"][0], ds[rule].values)
+            assert m["tags"]["flag_values"] == "0 1 255"
+            assert m["tags"]["flag_meanings"] == "false true insufficient_data"
+    with rasterio.open(out_dir / "trajectory.tif") as src:  # band 1's colour table from the .aux.xml
+        cmap = src.colormap(1)
+        assert src.colorinterp[1] != rasterio.enums.ColorInterp.palette  # no half-paletted second band
+    assert cmap[3] == tuple(int(TRAJECTORY_PALETTE["abrupt_increase"][i:i + 2], 16) for i in (1, 3, 5)) + (255,)
+    with rasterio.open(out_dir / "rule_greening_loss.tif") as src:  # palette inside the TIFF, read by GDAL
+        cmap = src.colormap(1)
+    assert cmap[1] == tuple(int(RULE_COLOURS["true"][i:i + 2], 16) for i in (1, 3, 5)) + (255,)
+    assert cmap[255][3] == 0  # nodata transparent
+    # GDAL reads the category names of the .aux.xml beside each image: its own VRT copy writes them out
+    for name, expected in (("trajectory.tif", FLAG_NAMES), ("rule_sand_encroachment.tif", ["false", "true"])):
+        vrt = tmp_path / f"{name}.vrt"
+        rasterio.shutil.copy(out_dir / name, vrt, driver="VRT")
+        bands = ElementTree.parse(vrt).getroot().findall("VRTRasterBand")
+        for band in bands:
+            names = [c.text or "" for c in band.find("CategoryNames")]
+            assert names[:len(expected)] == expected
+        if name.startswith("rule"):
+            assert names[255] == "insufficient_data"
+            entries = bands[0].find("ColorTable").findall("Entry")
+            assert entries[1].attrib["c1"] == str(int(RULE_COLOURS["true"][1:3], 16))
+        else:
+            assert len(bands) == 2
+
+
+FLAG_NAMES = ["stable", "gradual_increase", "gradual_decrease", "abrupt_increase", "abrupt_decrease",
+              "insufficient_data"]
+
+
+def test_cog_maps_join_the_product_set(tmp_path, fractions_nc, rules_txt, capsys, monkeypatch):
+    out_dir = tmp_path / "out"
+    out_dir.mkdir()
+    (out_dir / "rule_greening_loss.tif").write_bytes(b"old map")
+    # an existing map stops the run before any work, and trends.nc is not written either
+    line = _one_line_error(capsys, main(["trends", str(fractions_nc), "--out", str(out_dir), "--rules",
+                                         str(rules_txt), "--cog"]))
+    assert "rule_greening_loss.tif" in line and "--overwrite" in line
+    assert sorted(p.name for p in out_dir.iterdir()) == ["rule_greening_loss.tif"]
+    # a failure while the GeoTIFFs are written leaves none of the set (trends.nc included)
+    import unmix.io.products.trend_cogs as trend_cogs
+    from unmix.errors import ProductWriteError
+
+    real = trend_cogs.write_cog
+    calls = []
+
+    def failing(*args, **kwargs):
+        calls.append(args[1])
+        if len(calls) == 3:
+            raise ProductWriteError(f"cannot write {args[1]}: no space left on device (simulated)")
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(trend_cogs, "write_cog", failing)
+    code = main(["trends", str(fractions_nc), "--out", str(out_dir), "--rules", str(rules_txt), "--cog", "--overwrite"])
+    assert "no space left" in _one_line_error(capsys, code) and len(calls) == 3
+    assert sorted(p.name for p in out_dir.iterdir()) == ["rule_greening_loss.tif"]
+    assert (out_dir / "rule_greening_loss.tif").read_bytes() == b"old map"

@@ -6,7 +6,7 @@ import numpy as np
 
 from .errors import InputError
 
-__all__ = ["decimal_years"]
+__all__ = ["decimal_years", "decimal_years_or_nan"]
 
 
 def decimal_years(dates) -> np.ndarray:
@@ -40,3 +40,21 @@ def decimal_years(dates) -> np.ndarray:
     start = years.astype("datetime64[s]")
     length = ((years + 1).astype("datetime64[s]") - start).astype(np.float64)
     return years.astype(np.int64) + 1970 + (d - start).astype(np.float64) / length
+
+
+def decimal_years_or_nan(dates) -> np.ndarray:
+    """:func:`decimal_years` of an array of any shape in which NaT (no date) becomes NaN.
+
+    For maps of dates (a change date per pixel) rather than a time axis, where a missing date is data.
+
+    Examples
+    --------
+    >>> decimal_years_or_nan(np.array([["2020-07-02", "NaT"]], dtype="datetime64[D]"))
+    array([[2020.5,    nan]])
+    """
+    d = np.asarray(dates)
+    out = np.full(d.shape, np.nan)
+    have = ~np.isnat(d)
+    if have.any():
+        out[have] = decimal_years(d[have])
+    return out

@@ -11,7 +11,8 @@ import numpy as np
 
 from ..cube.trends import SeasonScheme, trend_cube
 from ..errors import InputError
-from ..io.products import open_product, write_netcdf
+from ..io.products import open_product, provenance_attrs, write_netcdf
+from ..io.products.trend_cogs import trend_cog_paths, write_trend_cogs
 from ..io.rules import read_rules
 from ..trajectory import Trajectory
 from ..trend import DEFAULT_CORRECTION, MannKendallCorrection
@@ -45,12 +46,17 @@ __all__ = ["trends"]
               help="Modification rules, one per line, e.g. "
                    "'desertification = green_vegetation:gradual_decrease & sand:gradual_increase'.")
 @zone_options
+@click.option("--cog", is_flag=True, default=False,
+              help="Also write Cloud-Optimized GeoTIFFs for a GIS: OUT/trajectory.tif (uint8 codes), slope.tif "
+                   "[1/yr], q_value.tif, change_date.tif (decimal year, e.g. 2019.5) with one band per endmember, "
+                   "and rule_<name>.tif per rule (0 false, 1 true, 255 insufficient data); category names and "
+                   "colours of the categorical maps in <file>.aux.xml beside them.")
 @overwrite_option
 @scheduler_options
 @writes_products
 def trends(fractions: Path, out: Path, fdr_q: float, min_slope: float, min_step: float, correction: str,
            season_scheme: str, min_valid: int, rules_file: Path | None, zones_file: Path | None, zone_field: str,
-           zone_pixels: str, cover_change: bool, periods: str | None, overwrite: bool,
+           zone_pixels: str, cover_change: bool, periods: str | None, cog: bool, overwrite: bool,
            workers: int | None, scheduler: str | None) -> None:
     """Label each pixel's fraction series per endmember and write OUT/trends.nc.
 
@@ -61,6 +67,8 @@ def trends(fractions: Path, out: Path, fdr_q: float, min_slope: float, min_step:
     (fewer than --min-valid dates). The product also holds Sen slopes [1/yr] with 95 % intervals,
     p- and q-values, and one map per rule with its area [ha]. --zones adds per-zone area tables;
     --cover-change / --periods a cover class map per period and a from-to table [ha] (also as CSV).
+    With --cog the maps also come as GeoTIFFs, written and put in place together with trends.nc
+    (all or none).
     """
     started = _time.perf_counter()
     target = Path(out) / "trends.nc"
@@ -77,6 +85,8 @@ def trends(fractions: Path, out: Path, fdr_q: float, min_slope: float, min_step:
         )
     endmembers = [str(v) for v in ds["endmember"].values]
     rules = read_rules(rules_file, endmembers) if rules_file is not None else []
+    cog_paths = trend_cog_paths(out, [r.name for r in rules]) if cog else []
+    products.claim_more(cog_paths)
     result = trend_cube(
         ds,
         q=fdr_q,
@@ -108,6 +118,7 @@ def trends(fractions: Path, out: Path, fdr_q: float, min_slope: float, min_step:
          f"--min-valid {min_valid}"]
         + ([f"--rules {rules_file}"] if rules_file is not None else [])
         + request.command_words()
+        + (["--cog"] if cog else [])
         + (["--overwrite"] if overwrite else [])
     )
     inputs = ([str(fractions)] + ([str(rules_file)] if rules_file is not None else [])
@@ -132,21 +143,32 @@ def trends(fractions: Path, out: Path, fdr_q: float, min_slope: float, min_step:
         with open_product(products.staged(target)) as written:
             write_zone_csvs(written, csvs, products)
     ds.close()
-    products.commit()
-    _summarise(target, ds, rules, started, where, fdr_q, correction, season_scheme)
+    if cog_paths:
+        from ..report.palettes import RULE_COLOURS, TRAJECTORY_PALETTE
+
+        product = open_product(products.staged(target))
+        tags = provenance_attrs(command=command, parameters=parameters, input_files=inputs,
+                                endmember_names=endmembers, title="unmix trends")
+        write_trend_cogs(product, out, rule_names=[r.name for r in rules], tags=tags, products=products,
+                         overwrite=overwrite, colours={"trajectory": TRAJECTORY_PALETTE, "rule": RULE_COLOURS})
+        product.close()
+    products.commit()  # trends.nc and its GeoTIFFs appear together, or none of them
+    _summarise(target, ds, rules, started, where, fdr_q, correction, season_scheme, len(cog_paths))
     if request.active:
         with open_product(target) as written:
             echo_zones(written, request, csvs)
 
 
-def _summarise(target: Path, ds, rules, started: float, where: str, fdr_q, correction, season_scheme) -> None:
+def _summarise(target: Path, ds, rules, started: float, where: str, fdr_q, correction, season_scheme,
+               n_cog: int = 0) -> None:
     written = open_product(target)
     codes = written["trajectory"].values  # (endmember, y, x) int8: small next to the cube
     endmembers = [str(v) for v in written["endmember"].values]
     ny, nx = written.sizes["y"], written.sizes["x"]
     test = f"seasonal Kendall ({season_scheme})" if season_scheme != "none" else f"Mann-Kendall ({correction})"
     echo_summary(
-        f"unmix trends: wrote {target} - {len(endmembers)} endmembers x {ny} x {nx} pixels x "
+        f"unmix trends: wrote {target}{f' (+{n_cog} GeoTIFF and .aux.xml files)' if n_cog else ''} - "
+        f"{len(endmembers)} endmembers x {ny} x {nx} pixels x "
         f"{ds.sizes['time']} dates, {test}, FDR q = {fdr_q}, in {_time.perf_counter() - started:.1f} s on {where}"
     )
     labels = [m.label for m in Trajectory]

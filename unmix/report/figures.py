@@ -8,23 +8,16 @@ from __future__ import annotations
 
 import numpy as np
 import xarray as xr
-from matplotlib.colors import BoundaryNorm, ListedColormap
 from matplotlib.figure import Figure
 
 from ..dates import decimal_years
+from .palettes import TRAJECTORY_PALETTE
+from .trend_maps import trajectory_maps
 
 __all__ = ["TRAJECTORY_COLOURS", "fraction_maps_figure", "trajectory_maps_figure", "series_figure"]
 
-#: Colours of the trajectory labels in this project's maps (our own choice: warm hues for losses,
-#: cool hues for gains, darker for abrupt, a pale neutral for stable and white for too few dates).
-TRAJECTORY_COLOURS = {
-    "stable": "#e4e1d8",
-    "gradual_increase": "#6fb6a8",
-    "gradual_decrease": "#e0a340",
-    "abrupt_increase": "#27507a",
-    "abrupt_decrease": "#9c2f2f",
-    "insufficient_data": "#ffffff",
-}
+#: Colours of the trajectory labels (the colour-blind-safe palette of :mod:`unmix.report.palettes`).
+TRAJECTORY_COLOURS = dict(TRAJECTORY_PALETTE)
 
 
 def _extent(da: xr.DataArray) -> list[float]:
@@ -68,35 +61,14 @@ def fraction_maps_figure(fractions: xr.DataArray, *, times: tuple[int, ...] = (0
 def trajectory_maps_figure(trajectory: xr.DataArray) -> Figure:
     """One categorical map of trajectory labels per endmember, with a legend.
 
+    Kept for existing callers; see :func:`unmix.report.trend_maps.trajectory_maps`.
+
     Parameters
     ----------
     trajectory : xarray.DataArray
         (endmember, y, x) integer codes with CF ``flag_values`` and ``flag_meanings`` attributes.
     """
-    values = np.atleast_1d(trajectory.attrs["flag_values"]).astype(int)
-    meanings = str(trajectory.attrs["flag_meanings"]).split()
-    order = np.argsort(values)
-    values = values[order]
-    meanings = [meanings[i] for i in order]
-    cmap = ListedColormap([TRAJECTORY_COLOURS.get(m, "#999999") for m in meanings])
-    bounds = np.concatenate([values - 0.5, [values[-1] + 0.5]])
-    norm = BoundaryNorm(bounds, cmap.N)
-    names = [str(n) for n in trajectory["endmember"].values]
-    fig = Figure(figsize=(2.8 * len(names) + 2.4, 3.0), layout="constrained")
-    axes = fig.subplots(1, len(names), squeeze=False)[0]
-    extent = _extent(trajectory)
-    for ax, name in zip(axes, names):
-        ax.imshow(np.asarray(trajectory.sel(endmember=name).values), cmap=cmap, norm=norm,
-                  extent=extent, interpolation="nearest")
-        ax.set_title(name, fontsize=9)
-        ax.set_xticks([])
-        ax.set_yticks([])
-    from matplotlib.patches import Patch
-
-    handles = [Patch(facecolor=TRAJECTORY_COLOURS.get(m, "#999999"), edgecolor="#555555",
-                     label=m.replace("_", " ")) for m in meanings]
-    fig.legend(handles=handles, loc="outside right center", fontsize=8, frameon=False)
-    return fig
+    return trajectory_maps(trajectory)
 
 
 def series_figure(

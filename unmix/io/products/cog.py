@@ -1,4 +1,4 @@
-"""Cloud-Optimized GeoTIFF products: one float32 band per date, written atomically."""
+"""Cloud-Optimized GeoTIFF products: one band per date or endmember, written atomically."""
 
 from __future__ import annotations
 
@@ -6,7 +6,7 @@ import contextlib
 import os
 import sys
 import tempfile
-from collections.abc import Iterator, Mapping
+from collections.abc import Iterator, Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -81,15 +81,22 @@ def write_cog(
     resampling: str = "average",
     tags: Mapping[str, Any] | None = None,
     products: ProductSet | None = None,
+    dtype: str = "float32",
+    nodata: float | None = float("nan"),
+    descriptions: Sequence[str] | None = None,
+    band_tags: Sequence[Mapping[str, Any]] | None = None,
+    units: str | None = None,
+    colormap: Mapping[int, tuple[int, int, int, int]] | None = None,
 ) -> Path:
-    """Write a (time, y, x) or (y, x) array as a float32 Cloud-Optimized GeoTIFF, atomically.
+    """Write a (time, y, x) or (y, x) array as a Cloud-Optimized GeoTIFF, atomically.
 
     The file is written under a hidden temporary name and appears complete or not at all (see
     :func:`~unmix.io.products.atomic_path`); a full disk or unwritable folder raises
     :class:`~unmix.errors.ProductWriteError`.
 
     One band per date, band descriptions = ISO dates (``YYYY-MM-DD``; for another leading
-    dimension the coordinate values), nodata NaN, tiled, compressed, with overviews. The array is
+    dimension the coordinate values, or ``descriptions``), nodata NaN (or ``nodata``), tiled,
+    compressed (with the floating-point or the horizontal-differencing predictor), with overviews. The array is
     computed block row by block row into a temporary tiled GeoTIFF, which GDAL's ``COG`` driver then
     copies into the final layout (or, on a GDAL without that driver, the tiled GeoTIFF gets internal
     overviews and is kept).
@@ -108,12 +115,27 @@ def write_cog(
     compress : str
         GDAL compression name.
     resampling : str
-        Overview resampling (GDAL name).
+        Overview resampling (GDAL name); ``mode`` or ``nearest`` for categorical codes.
     tags : mapping, optional
         Dataset tags (provenance) to store in the file.
     products : ProductSet, optional
         A claimed set of products this file belongs to (:mod:`unmix.io.products.claim`); it appears
         with the rest of the set at its commit. Default: claimed and committed on its own.
+    dtype : str
+        Stored data type (``float32``, ``uint8``, ``int32``...); values are cast to it, so an integer
+        type needs the caller to have put ``nodata`` where values are missing.
+    nodata : float or None
+        Nodata value stored in the file (NaN for floats by default).
+    descriptions : sequence of str, optional
+        Band descriptions, one per band (default: from the leading coordinate, see above).
+    band_tags : sequence of mapping, optional
+        Tags of each band (GDAL band metadata), one mapping per band.
+    units : str, optional
+        Unit of every band (GDAL's band unit type), e.g. ``1/yr``.
+    colormap : mapping, optional
+        Code -> (red, green, blue, alpha) 0..255: a colour table stored in the file. Only for a
+        single ``uint8`` band: TIFF holds a palette for one-sample images only (GDAL makes a second
+        band of a paletted file its alpha).
 
     Returns
     -------
@@ -141,25 +163,33 @@ def write_cog(
     if lead in da.coords:
         values = da[lead].values
         if np.issubdtype(values.dtype, np.datetime64):
-            descriptions = [str(np.datetime_as_string(v, unit="D")) for v in values]
+            names = [str(np.datetime_as_string(v, unit="D")) for v in values]
         else:
-            descriptions = [str(v) for v in values]
+            names = [str(v) for v in values]
     else:
-        descriptions = [f"{lead} {i + 1}" for i in range(da.shape[0])]
+        names = [f"{lead} {i + 1}" for i in range(da.shape[0])]
+    if descriptions is not None:
+        names = [str(d) for d in descriptions]
     wkt, transform = georef_of(da)
     n, height, width = (int(s) for s in da.shape)
+    floating = np.issubdtype(np.dtype(dtype), np.floating)
+    if len(names) != n or (band_tags is not None and len(band_tags) != n):
+        raise InputError(f"write_cog: {n} bands but {len(names)} descriptions / "
+                         f"{len(band_tags or names)} band tag sets for {path.name}")
+    if colormap is not None and (n != 1 or np.dtype(dtype) != np.uint8):
+        raise InputError(f"write_cog: a colour table needs one uint8 band ({path.name} has {n} {dtype} bands)")
     profile = {
         "driver": "GTiff",
         "width": width,
         "height": height,
         "count": n,
-        "dtype": "float32",
-        "nodata": float("nan"),
+        "dtype": dtype,
+        "nodata": nodata,
         "tiled": True,
         "blockxsize": blocksize,
         "blockysize": blocksize,
         "compress": compress,
-        "predictor": 3,
+        "predictor": 3 if floating else 2,
         "BIGTIFF": "IF_SAFER",
     }
     if wkt is not None:
@@ -176,14 +206,20 @@ def write_cog(
         stack.enter_context(_c_stderr_held())
         stage = products.scratch(path, "stage") if use_cog else tmp
         with rasterio.open(stage, "w", **profile) as dst:
-            for i, text in enumerate(descriptions, start=1):
+            for i, text in enumerate(names, start=1):
                 dst.set_band_description(i, text)
+                if units is not None:
+                    dst.set_band_unit(i, units)
+                if band_tags is not None and band_tags[i - 1]:
+                    dst.update_tags(i, **{k: str(v) for k, v in band_tags[i - 1].items()})
             if clean_tags:
                 dst.update_tags(**clean_tags)
+            if colormap is not None:
+                dst.write_colormap(1, dict(colormap))
             step = blocksize * max(1, 2048 // blocksize)
             for row in range(0, height, step):
                 rows = slice(row, min(height, row + step))
-                block = np.asarray(da[:, rows, :].values, dtype="float32")
+                block = np.asarray(da[:, rows, :].values).astype(dtype, copy=False)
                 dst.write(block, window=rasterio.windows.Window(0, row, width, block.shape[1]))
             if not use_cog:
                 factors = [f for f in (2, 4, 8, 16, 32) if min(height, width) // f >= blocksize // 2]
