@@ -74,3 +74,28 @@ def test_demo_refuses_to_overwrite(demo_result, capsys):
     err = capsys.readouterr().err
     assert "--overwrite" in err and "Traceback" not in err
     assert (demo_result.out / "fractions.nc").stat().st_mtime_ns == before
+
+
+def test_demo_date_checks_find_the_built_in_faults(demo_result):
+    """The three faults built into the record are each found, and the trajectories stay recovered
+    (test_demo_recovers_trajectories)."""
+    from unmix.demo.run import BRIGHT, OFF_SEASON_DATE, SHIFTED
+    from unmix.io.ledger import read_ledger_csv
+
+    ledger = read_ledger_csv(demo_result.out / "dates.csv")
+    days = ledger["time"].values.astype("datetime64[D]")
+    by_fault = {row["built in"].split()[0]: np.datetime64(row["date"], "D") for _, row in demo_result.checks.iterrows()}
+    off = days == OFF_SEASON_DATE
+    assert not ledger["used"].values[off].any() and "window" in str(ledger["reason"].values[off][0])
+    i = int(np.flatnonzero(days == by_fault["shifted"])[0])
+    # measured against the shift applied with scipy.ndimage.shift: within 0.1 px, and the date left out
+    assert ledger["shift_y"].values[i] == pytest.approx(-SHIFTED["shift"][0], abs=0.1)
+    assert ledger["shift_x"].values[i] == pytest.approx(-SHIFTED["shift"][1], abs=0.1)
+    assert not ledger["used"].values[i]
+    j = int(np.flatnonzero(days == by_fault[BRIGHT["band"]])[0])
+    gain = float(ledger["gain"].sel(band=BRIGHT["band"]).values[j])
+    assert gain == pytest.approx(1 / BRIGHT["gain"], rel=0.03) and "gain" in str(ledger["reason"].values[j])
+    # every other in-season date measures below a fifth of a pixel (Townshend et al. 1992, common practice)
+    rest = ledger["used"].values.copy()
+    shift = np.hypot(ledger["shift_y"].values, ledger["shift_x"].values)
+    assert (shift[rest] < 0.2).all(), shift

@@ -30,16 +30,16 @@ def test_trajectory_area_table_counts_every_pixel():
     rng = np.random.default_rng(0)
     ds = _trends(rng)
     table = trajectory_area_table(ds)
-    for name, group in table.groupby("endmember"):
-        assert group["pixels"].sum() == 12 * 10
+    for name, group in table.groupby("Endmember"):
+        assert group["Pixels"].sum() == 12 * 10
         # 30 m pixels are 0.09 ha each (900 m^2 / 10,000 m^2 per ha; unit definition)
-        np.testing.assert_allclose(group["area_ha"], group["pixels"] * 0.09)
-        # shares are of the pixels with enough dates and add up to 100 %
-        assert group["share_pct"].sum(skipna=True) == pytest.approx(100.0)
+        np.testing.assert_allclose(group["Area [ha]"], group["Pixels"] * 0.09)
+        # shares are of the area with enough dates and add up to 100 %
+        assert group["Share of valid area [%]"].sum(skipna=True) == pytest.approx(100.0)
         codes = ds["trajectory"].sel(endmember=name).values
         counts = pd.Series(codes.ravel()).value_counts()
         stable = FLAG_VALUES[FLAG_MEANINGS.split().index("stable")]
-        assert int(group.loc[group["trajectory"] == "stable", "pixels"].iloc[0]) == counts.get(stable, 0)
+        assert int(group.loc[group["Trajectory"] == "stable", "Pixels"].iloc[0]) == counts.get(stable, 0)
 
 
 def test_every_label_has_a_colour():
@@ -53,11 +53,13 @@ def test_report_page_and_tables(tmp_path):
     fr = xr.Dataset({"fractions": (("time", "endmember", "y", "x"), rng.uniform(0, 1, (3, 2, 12, 10)).astype(np.float32)),
                      "rmse": (("time", "y", "x"), rng.uniform(0, 0.01, (3, 12, 10)))},
                     coords={"time": times, "endmember": ["green_vegetation", "sand"], "y": trends.y, "x": trends.x})
-    page, tables = build_report(fr, trends, title="Test report")
-    assert CAUTION in page and page.count("data:image/png;base64,") == 2
-    assert set(tables) == {"trajectory_areas", "rule_areas"}
-    written = write_report(page, tables, tmp_path / "rep")
-    assert [p.name for p in written] == ["report.html", "trajectory_areas.csv", "rule_areas.csv"]
+    page, tables, figures = build_report(fr, trends, title="Test report")
+    assert CAUTION in page and page.count("data:image/png;base64,") == len(figures) >= 3
+    assert {"fraction_periods", "trajectories"} <= set(figures)
+    assert {"trajectory_areas", "rule_areas", "dates", "parameters"} <= set(tables)
+    written = write_report(page, tables, tmp_path / "rep", figures=figures)
+    assert [p.name for p in written][:3] == ["report.html", "trajectory_areas.csv", "rule_areas.csv"]
+    assert all(p.exists() for p in written) and (tmp_path / "rep" / "figures" / "trajectories.png").exists()
     before = written[0].read_bytes()
     with pytest.raises(OutputExistsError):
         write_report("<html>other</html>", tables, tmp_path / "rep")

@@ -1,4 +1,4 @@
-"""``unmix report``: an HTML report with maps and area tables from trend (and fraction) products."""
+"""``unmix report``: an HTML report with maps, area tables, time series, accuracy and the date ledger."""
 
 from __future__ import annotations
 
@@ -6,31 +6,52 @@ from pathlib import Path
 
 import click
 
-from ._common import claim_products, echo_summary, overwrite_option, writes_products
+from ._common import claim_products, echo_summary, overwrite_option, split_names, writes_products
 
-#: Tables written beside report.html (the names of build_report's tables).
-_TABLES = ["trajectory_areas", "rule_areas", "dates"]
+#: Tables always written beside report.html (others join when the products carry them).
+_TABLES = ["trajectory_areas", "rule_areas", "dates", "parameters"]
 
 
 @click.command("report")
 @click.argument("trends", type=click.Path(path_type=Path), metavar="TRENDS.nc")
 @click.option("--fractions", "fractions", type=click.Path(path_type=Path), default=None, metavar="FRACTIONS.nc",
-              help="The fractions product the trends came from; adds fraction maps of the first and last date "
-                   "and the model-fit summary. Must be on the same grid and dates as TRENDS.nc.")
+              help="The fractions product the trends came from; adds the period fraction maps, the RGB composite, "
+                   "time series and the data-quality maps. Must be on the same grid and dates as TRENDS.nc.")
+@click.option("--zones", "zones_file", type=click.Path(dir_okay=False, path_type=Path), default=None, metavar="FILE",
+              help="Zone polygons (GeoJSON, GeoPackage, Shapefile; any CRS) whose mean fractions are plotted over "
+                   "time. Default: the zones TRENDS.nc was made with, when that file is still there.")
+@click.option("--zone-field", "zone_field", default=None, metavar="NAME",
+              help="Attribute of --zones holding the zone names. Default: the one TRENDS.nc was made with, else "
+                   "'name'.")
+@click.option("--points", "points_file", type=click.Path(dir_okay=False, path_type=Path), default=None,
+              metavar="CSV", help="Points whose fraction series are plotted with their Sen line: a CSV with columns "
+                                  "name, x, y in the products' CRS.")
+@click.option("--assessment", "assessment_dir", type=click.Path(file_okay=False, path_type=Path), default=None,
+              metavar="DIR", help="Folder written by 'unmix assess': adds accuracies and the sample-based areas with "
+                                  "their 95 % confidence intervals.")
+@click.option("--rmse-limit", "rmse_limit", type=click.FloatRange(min=0, min_open=True), default=0.025,
+              show_default=True, help="Unmixing RMSE [reflectance] above which a pixel counts as poorly modelled.")
+@click.option("--rgb", "rgb", default=None, metavar="R,G,B",
+              help="Three endmembers shown as red, green and blue in the fraction composite (default: the first "
+                   "three that are not shade).")
 @click.option("--out", "out", type=click.Path(file_okay=False, path_type=Path), default="report",
-              show_default=True, help="Folder for report.html, trajectory_areas.csv and rule_areas.csv.")
+              show_default=True, help="Folder for report.html, its CSV tables and figures/ (PNG).")
 @click.option("--title", default="Land-cover fractions and their trends", show_default=True,
               help="Title of the report.")
 @overwrite_option
 @writes_products
-def report(trends: Path, fractions: Path | None, out: Path, title: str, overwrite: bool) -> None:
-    """Write a self-contained HTML report of TRENDS.nc: trajectory maps, area tables per trajectory and
-    per modification rule [ha and % of the pixels with enough dates], provenance and the caution.
+def report(trends: Path, fractions: Path | None, zones_file: Path | None, zone_field: str | None,
+           points_file: Path | None, assessment_dir: Path | None, rmse_limit: float, rgb: str | None, out: Path,
+           title: str, overwrite: bool) -> None:
+    """Write a self-contained HTML report of TRENDS.nc: fraction, slope, trajectory, change-date and rule maps,
+    area tables (per trajectory, rule, zone, and the from-to table), time series, accuracy, data quality with
+    the date ledger, methods in plain words, parameters and the caution. Its tables are written as CSV and its
+    figures as PNG beside it.
     """
     from ..errors import InputError
     from ..io.products import open_product
     from ..io.products.consistency import check_same_scene
-    from ..io.report import report_paths, write_report
+    from ..io.report import read_assessment, read_points, report_paths, write_report
     from ..report import build_report
 
     # claimed before any input is read: a busy, existing or unwritable report stops the run here
@@ -41,7 +62,35 @@ def report(trends: Path, fractions: Path | None, out: Path, title: str, overwrit
     fraction_ds = open_product(fractions) if fractions is not None else None
     if fraction_ds is not None:
         check_same_scene(trend_ds, fraction_ds, str(trends), str(fractions))
-    page, tables = build_report(fraction_ds, trend_ds.load(), title=title)
-    written = write_report(page, tables, out, overwrite=overwrite, products=products)
-    products.commit()  # the page and its tables appear together
-    echo_summary(f"report: {written[0]} (+ {len(written) - 1} CSV tables)")
+    names = split_names(rgb, "--rgb")
+    if names is not None and len(names) != 3:
+        raise InputError(f"--rgb needs three endmember names (red, green, blue), got {len(names)}")
+    points = read_points(points_file) if points_file is not None else None
+    assessment = read_assessment(assessment_dir) if assessment_dir is not None else None
+    zones = _zone_masks(trend_ds, zones_file, zone_field) if fraction_ds is not None else None
+    page, tables, figures = build_report(fraction_ds, trend_ds.load(), title=title, zones=zones, points=points,
+                                         assessment=assessment, rmse_limit=rmse_limit,
+                                         rgb=tuple(names) if names else None)
+    written = write_report(page, tables, out, overwrite=overwrite, products=products, figures=figures)
+    products.commit()  # the page, its tables and figures appear together
+    echo_summary(f"report: {written[0]} (+ {len(tables)} CSV tables, {len(figures)} PNG figures)")
+
+
+def _zone_masks(trends, zones_file: Path | None, zone_field: str | None):
+    """Zone name -> (y, x) mask on the products' grid (pixel centres), or None without zones."""
+    import json
+
+    from ..cube.georef import georef_of
+    from ..cube.zones import zone_weights
+    from ..io.zones import read_zones
+
+    recorded = json.loads(trends.attrs.get("parameters", "{}")).get("zones") or {}
+    if zones_file is None:
+        if not recorded or not Path(recorded.get("file", "")).is_file():
+            return None
+        zones_file = Path(recorded["file"])
+    field = zone_field or recorded.get("field") or "name"
+    wkt, _ = georef_of(trends)
+    zones = read_zones(zones_file, name_field=field, crs=wkt or None)
+    weights = zone_weights(zones, trends["trajectory"].isel(endmember=0), "centre").load()
+    return {name: weights.sel(zone=name).values > 0.5 for name in zones.names}

@@ -20,14 +20,18 @@ import xarray as xr
 
 from ..errors import OutputExistsError
 from ..io.archive.write import write_landsat_l2
+from ..io.ledger import ledger_from_product
 from ..io.library import read_library, shipped_library_path
 from ..io.products import open_product, write_netcdf
-from ..io.report import report_paths, write_report
+from ..io.report import read_assessment, report_paths, write_points, write_report
+from ..io.sample import write_interpreted_sample
+from ..io.zones import write_zones_file
 from ..report import build_report
 from ..sensors.roles import DEFAULT_ROLES, bands_for_roles
 from ..spectra import resample
+from .reference import DISTRICT_FIELD, demo_points, district_polygons, interpret_sample, true_rule
 from .scenario import ENDMEMBERS, ZONES, make_scenario
-from .score import date_checks, fraction_errors, trajectory_hits
+from .score import date_checks, fraction_errors, sample_areas, trajectory_hits
 
 __all__ = ["DemoResult", "RULES", "SENSORS", "SWITCH_DATE", "inject_faults", "run_demo", "sensor_of_dates"]
 
@@ -41,6 +45,9 @@ SWITCH_DATE = np.datetime64("2012-07-01")
 OFF_SEASON_DATE = np.datetime64("2010-01-20")
 SHIFTED = {"at": 0.45, "shift": (1.2, -0.9)}
 BRIGHT = {"at": 0.65, "band": "nir", "gain": 1.1}
+#: Rule map the demo samples for accuracy and sample-based area, and the sample size.
+SAMPLED_RULE = "desertification"
+SAMPLE_SIZE = 300
 #: Day-of-year window the demo keeps (the dry season of the record, see scenario.DRY_SEASON_DOY).
 DOY_WINDOW = "215-335"
 RULES = """\
@@ -61,6 +68,7 @@ class DemoResult:
     hits: pd.DataFrame
     checks: pd.DataFrame
     rule_areas: pd.DataFrame
+    areas: pd.DataFrame
     pivot_disc_ha: float
     report: Path
 
@@ -108,7 +116,8 @@ def run_demo(out: str | Path, *, size: int = 160, n_time: int = 40, seed: int = 
     """
     out = Path(out)
     stack_dir = out / "stack"
-    targets = [out / "truth.nc", out / "fractions.nc", out / "trends.nc", out / "rules.txt",
+    targets = [out / "truth.nc", out / "fractions.nc", out / "trends.nc", out / "rules.txt", out / "dates.csv",
+               out / "districts.geojson", out / "points.csv", out / "sample", out / "assessment",
                *report_paths(out / "report", ["trajectory_areas", "rule_areas", "dates"])]
     existing = [str(p) for p in targets if p.exists()]
     if (stack_dir.exists() and any(stack_dir.iterdir())) and not overwrite:
@@ -145,41 +154,75 @@ def run_demo(out: str | Path, *, size: int = 160, n_time: int = 40, seed: int = 
     rules_path.write_text(RULES, encoding="utf-8")
 
     flag = ["--overwrite"] if overwrite else []
+    districts_path, points_path = out / "districts.geojson", out / "points.csv"
+    names, polygons = district_polygons(scenario, "EPSG:4326")
+    write_zones_file(districts_path, names, polygons, crs="EPSG:4326", name_field=DISTRICT_FIELD, overwrite=overwrite)
+    points = demo_points(scenario)
+    write_points(points, points_path, overwrite=overwrite)
+    sample_dir, assessment_dir = out / "sample", out / "assessment"
     commands = [
         ["fractions", str(stack_dir), "--library", str(library_path), "--endmembers", ",".join(ENDMEMBERS),
          "--doy-window", DOY_WINDOW, "--out", str(out), *flag],
-        ["trends", str(out / "fractions.nc"), "--rules", str(rules_path), "--out", str(out), *flag],
+        ["trends", str(out / "fractions.nc"), "--rules", str(rules_path), "--zones", str(districts_path),
+         "--zone-field", DISTRICT_FIELD, "--cover-change", "--cog", "--out", str(out), *flag],
+        ["sample", str(out / "trends.nc"), "--map", SAMPLED_RULE, "--total", str(SAMPLE_SIZE), "--seed", "1",
+         "--out", str(sample_dir), *flag],
     ]
     for args in commands:
         echo("$ unmix " + shlex.join(args))
         _run(args, echo)
 
+    # the sample interpreted: here from the invented truth (in practice, on fine-resolution imagery)
+    interpreted = sample_dir / "interpreted.csv"
+    write_interpreted_sample(sample_dir / "sample.csv",
+                             lambda t: interpret_sample(t["row"], t["col"], scenario, SAMPLED_RULE), interpreted,
+                             overwrite=overwrite)
+    echo(f"(the sample points interpreted from the invented truth -> {interpreted})")
+    assess = ["assess", str(interpreted), "--out", str(assessment_dir), *flag]
+    echo("$ unmix " + shlex.join(assess))
+    _run(assess, echo)
+    commands.append(assess)
+
     fractions = open_product(out / "fractions.nc").load()
     trends = open_product(out / "trends.nc").load()
     errors = fraction_errors(scenario, fractions)
     hits = trajectory_hits(scenario, trends)
-    from ..io.ledger import ledger_from_product
-
     checks = date_checks(faults, ledger_from_product(fractions))
-    page, tables = build_report(
+    assessment = read_assessment(assessment_dir)
+    areas = sample_areas(assessment["accuracy"], true_rule(scenario, SAMPLED_RULE), SAMPLED_RULE)
+    zones = {name: mask for name, mask in zip(names, _district_masks(trends, districts_path))}
+    page, tables, figures = build_report(
         fractions, trends, title="Marrow Creek (invented demo scene): fractions and trends",
+        zones=zones, points=points, assessment=assessment,
         extra_sections=[
             ("Faults built into the record", "<p>Three dates of the invented record carry faults on purpose; "
              "the date checks of <code>unmix fractions</code> should find each.</p>"
              + checks.to_html(index=False, border=0)),
             ("Recovered against the invented truth",
              "<p>This scene is invented; its true fractions and zones are known, so the tool's "
-             "estimates can be scored.</p>" + errors.to_html(index=False, float_format="%.4f", border=0)
+             "estimates can be scored. The reference sample was interpreted from this truth.</p>"
+             + errors.to_html(index=False, float_format="%.4f", border=0)
              + hits.to_html(index=False, float_format="%.1f", border=0)
+             + areas.to_html(index=False, float_format=lambda v: f"{v:,.1f}", border=0)
              + f"<p>True area of the cleared centre-pivot disc: {scenario.pivot_disc_ha:.2f} ha.</p>"),
         ],
     )
-    written = write_report(page, tables, out / "report", overwrite=overwrite)
+    written = write_report(page, tables, out / "report", overwrite=overwrite, figures=figures)
     fractions.close()
     trends.close()
     return DemoResult(out=out, commands=["unmix " + shlex.join(a) for a in commands], errors=errors,
-                      hits=hits, checks=checks, rule_areas=tables["rule_areas"], pivot_disc_ha=scenario.pivot_disc_ha,
-                      report=written[0])
+                      hits=hits, checks=checks, rule_areas=tables["rule_areas"], areas=areas,
+                      pivot_disc_ha=scenario.pivot_disc_ha, report=written[0])
+
+
+def _district_masks(trends: xr.Dataset, path: Path) -> list[np.ndarray]:
+    from ..cube.georef import georef_of
+    from ..cube.zones import zone_weights
+    from ..io.zones import read_zones
+
+    zones = read_zones(path, name_field=DISTRICT_FIELD, crs=georef_of(trends)[0])
+    weights = zone_weights(zones, trends["trajectory"].isel(endmember=0), "centre").load()
+    return [weights.sel(zone=name).values > 0.5 for name in zones.names]
 
 
 def _date_at(dates: np.ndarray, share: float) -> int:
@@ -255,7 +298,10 @@ def summary_text(result: DemoResult) -> str:
              result.hits.to_string(index=False, float_format=lambda v: f"{v:.1f}"), ""]
     if len(result.rule_areas):
         lines += ["Modification rules (area flagged):",
-                  result.rule_areas.to_string(index=False, float_format=lambda v: f"{v:.2f}"),
+                  result.rule_areas.to_string(index=False, float_format=lambda v: f"{v:,.2f}"),
                   f"(true area of the cleared pivot disc: {result.pivot_disc_ha:.2f} ha)", ""]
+    lines += [f"Area of '{SAMPLED_RULE}': pixel count against the sample-based estimate (Olofsson et al. 2014) and "
+              "the invented truth [ha]:",
+              result.areas.to_string(index=False, float_format=lambda v: f"{v:,.1f}"), ""]
     lines += [f"Report: {result.report}"]
     return "\n".join(lines)

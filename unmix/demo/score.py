@@ -8,10 +8,10 @@ import xarray as xr
 
 from .scenario import ENDMEMBERS, ZONES, Scenario
 
-__all__ = ["EXPECTED", "date_checks", "fraction_errors", "trajectory_hits"]
+__all__ = ["EXPECTED", "date_checks", "fraction_errors", "sample_areas", "strong_change", "trajectory_hits"]
 
 #: Trajectory each zone should show, per endmember (what the invented story built into it).
-#: Pixels where the designed change is too weak to detect are left out (see ``_strong``).
+#: Pixels where the designed change is too weak to detect are left out (see ``strong_change``).
 EXPECTED = {
     ("stable", "green_vegetation"): "stable",
     ("stable", "sand"): "stable",
@@ -41,7 +41,7 @@ def fraction_errors(scenario: Scenario, fractions: xr.Dataset) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
-def _strong(scenario: Scenario) -> np.ndarray:
+def strong_change(scenario: Scenario) -> np.ndarray:
     """Pixels whose designed change is large enough to be called (piosphere core, whole other zones)."""
     t = np.arange(scenario.fractions.shape[0])
     gv = scenario.fractions[:, 0]
@@ -58,7 +58,7 @@ def trajectory_hits(scenario: Scenario, trends: xr.Dataset) -> pd.DataFrame:
     meanings = str(traj.attrs["flag_meanings"]).split()
     values = np.atleast_1d(traj.attrs["flag_values"]).astype(int)
     code_of = dict(zip(meanings, values.tolist()))
-    strong = _strong(scenario)
+    strong = strong_change(scenario)
     rows = []
     for (zone_name, endmember), label in EXPECTED.items():
         mask = (scenario.zone == ZONES.index(zone_name)) & strong
@@ -95,4 +95,37 @@ def date_checks(faults: list[dict], ledger: xr.Dataset) -> pd.DataFrame:
         reason = str(ledger["reason"].values[i])
         rows.append({"date": fault["date"], "built in": fault["built in"], "measured": "; ".join(found) or "-",
                      "used": bool(ledger["used"].values[i]), "ledger says": reason or "-"})
+    return pd.DataFrame(rows)
+
+
+def sample_areas(accuracy: pd.DataFrame, truth: np.ndarray, rule: str, pixel_ha: float = 0.09) -> pd.DataFrame:
+    """Mapped (pixel-count) and sample-based areas of each class of a rule map beside the invented truth.
+
+    Parameters
+    ----------
+    accuracy : pandas.DataFrame
+        ``accuracy.csv`` of ``unmix assess`` (one row per class).
+    truth : (y, x) bool ndarray
+        Where the rule truly holds.
+    rule : str
+    pixel_ha : float
+        Area of one pixel [ha] (30 m pixels: 0.09 ha).
+    """
+    true_ha = {"true": float(truth.sum()) * pixel_ha, "false": float((~truth).sum()) * pixel_ha}
+    cols = {c.lower(): c for c in accuracy.columns}
+
+    def col(*names):
+        for n in names:
+            for key, real in cols.items():
+                if key.startswith(n):
+                    return real
+        raise KeyError(names)
+
+    klass, mapped, area, ci = col("class", "map_class"), col("mapped_area"), col("area_ha", "area"), col("area_ci95")
+    rows = []
+    for _, r in accuracy.iterrows():
+        name = str(r[klass]).lower()
+        rows.append({"rule": rule, "class": name, "mapped [ha]": float(r[mapped]),
+                     "sample-based [ha]": float(r[area]), "± 95 % [ha]": float(r[ci]),
+                     "true [ha]": true_ha.get(name, float("nan"))})
     return pd.DataFrame(rows)

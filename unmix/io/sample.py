@@ -25,7 +25,7 @@ import pandas as pd
 from ..errors import SampleFormatError, SampleReadError
 from .products.claim import ProductSet
 
-__all__ = ["SAMPLE_FILES", "write_sample", "read_sample", "read_strata", "write_tables", "write_figure",
+__all__ = ["SAMPLE_FILES", "write_interpreted_sample", "write_sample", "read_sample", "read_strata", "write_tables", "write_figure",
            "read_reference_points"]
 
 #: Files :func:`write_sample` writes into its folder.
@@ -270,3 +270,20 @@ def read_reference_points(path: str | os.PathLike, endmembers: list[str], crs_wk
                                     "(use YYYY-MM-DD)")
         table["date"] = dates
     return table
+
+
+def write_interpreted_sample(sample_csv: str | os.PathLike, interpret, path: str | os.PathLike, *,
+                             overwrite: bool = False) -> Path:
+    """A copy of ``sample.csv`` with its ``reference`` column filled, written atomically to ``path``: what an
+    interpreter hands back. ``interpret(table)`` gives one reference class per point (the table's order)."""
+    from .products.atomic import atomic_path
+
+    table = pd.read_csv(sample_csv, dtype={"reference": str}, keep_default_na=False)
+    reference = [str(r) for r in interpret(table)]
+    if len(reference) != len(table):
+        raise SampleFormatError(f"{sample_csv} has {len(table)} points but {len(reference)} reference classes "
+                                "were given")
+    table["reference"] = reference
+    with atomic_path(path, overwrite=overwrite) as tmp:
+        table.to_csv(tmp, index=False)
+    return Path(path)

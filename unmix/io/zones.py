@@ -23,7 +23,7 @@ import numpy as np
 from ..cube.zones import RESERVED_ZONES, Zones
 from ..errors import UnknownNameError, ZoneFileError
 
-__all__ = ["read_zones", "file_sha256", "write_area_csvs"]
+__all__ = ["read_zones", "file_sha256", "write_area_csvs", "write_zones_file"]
 
 
 def file_sha256(path: str | os.PathLike) -> str:
@@ -157,3 +157,31 @@ def write_area_csvs(tables, products) -> list[Path]:
             frame.to_csv(tmp, index=False, float_format="%.4f")
         written.append(Path(path))
     return written
+
+
+def write_zones_file(path: str | os.PathLike, names, geometries, *, crs, name_field: str = "name",
+                     overwrite: bool = False) -> Path:
+    """Write zone polygons with their names as GeoJSON (any CRS pyproj knows), atomically.
+
+    Parameters
+    ----------
+    path : path
+        Destination ``.geojson``.
+    names : sequence of str
+    geometries : sequence of shapely polygons
+        In ``crs``.
+    crs : str or pyproj.CRS
+        CRS of the geometries, written with the file (e.g. ``EPSG:4326``).
+    name_field : str
+        Attribute the names go to.
+    overwrite : bool
+        Replace an existing file.
+    """
+    import geopandas
+
+    from .products.atomic import atomic_path
+
+    frame = geopandas.GeoDataFrame({name_field: [str(n) for n in names]}, geometry=list(geometries), crs=crs)
+    with atomic_path(path, overwrite=overwrite) as tmp:
+        frame.to_file(tmp, driver="GeoJSON")
+    return Path(path)

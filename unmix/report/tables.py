@@ -6,9 +6,10 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from ..cube.georef import pixel_area_m2
+from ..cube.georef import pixel_area_rows
 
-__all__ = ["ledger_table", "trajectory_area_table", "rule_area_table"]
+__all__ = ["TRAJECTORY_WORDS", "excluded_area", "from_to_table", "ledger_table", "rule_area_table",
+           "trajectory_area_table", "zone_area_tables"]
 
 
 def _flag_labels(var: xr.DataArray) -> dict[int, str]:
@@ -17,8 +18,22 @@ def _flag_labels(var: xr.DataArray) -> dict[int, str]:
     return dict(zip(values.tolist(), meanings))
 
 
+def _row_area_ha(ds: xr.Dataset) -> np.ndarray:
+    """Ground area of one pixel of each row [ha] (exact per row on a geographic grid)."""
+    areas, _ = pixel_area_rows(ds)
+    return np.asarray(areas, dtype=float) / 1e4
+
+
+#: Readable name of each trajectory label in the report's tables.
+TRAJECTORY_WORDS = {
+    "stable": "stable", "gradual_increase": "gradual increase", "gradual_decrease": "gradual decrease",
+    "abrupt_increase": "abrupt increase", "abrupt_decrease": "abrupt decrease",
+    "insufficient_data": "too few valid dates (left out)",
+}
+
+
 def trajectory_area_table(trends: xr.Dataset) -> pd.DataFrame:
-    """Area [ha] and share [%] of each trajectory label, per endmember.
+    """Pixels, area [ha] and share of the valid area [%] of each trajectory label, per endmember.
 
     Parameters
     ----------
@@ -29,42 +44,115 @@ def trajectory_area_table(trends: xr.Dataset) -> pd.DataFrame:
     Returns
     -------
     pandas.DataFrame
-        One row per (endmember, trajectory) with columns ``pixels``, ``area_ha`` and ``share_pct``
-        (share of pixels with enough valid dates).
+        One row per (endmember, trajectory) with the columns ``Endmember``, ``Trajectory``, ``Pixels``,
+        ``Area [ha]`` (pixel areas summed row by row: exact on a geographic grid too) and ``Share of valid
+        area [%]`` (the area with enough valid dates; the insufficient-data row has none).
     """
     traj = trends["trajectory"]
     labels = _flag_labels(traj)
-    ha = pixel_area_m2(trends)[0] / 1e4
+    row_ha = _row_area_ha(trends)
     rows = []
     for name in traj["endmember"].values:
-        codes = np.asarray(traj.sel(endmember=name).values).ravel()
-        counts = {code: int(np.count_nonzero(codes == code)) for code in labels}
-        valid = sum(c for code, c in counts.items() if labels[code] != "insufficient_data")
+        codes = np.asarray(traj.sel(endmember=name).transpose("y", "x").values)
+        per = {code: (int(np.count_nonzero(codes == code)), float(((codes == code).sum(axis=1) * row_ha).sum()))
+               for code in labels}
+        valid_ha = sum(a for code, (_, a) in per.items() if labels[code] != "insufficient_data")
         for code, label in labels.items():
-            n = counts[code]
-            share = 100.0 * n / valid if valid and label != "insufficient_data" else np.nan
-            rows.append({"endmember": str(name), "trajectory": label, "pixels": n,
-                         "area_ha": n * ha, "share_pct": share})
+            n, area = per[code]
+            share = 100.0 * area / valid_ha if valid_ha and label != "insufficient_data" else np.nan
+            rows.append({"Endmember": str(name), "Trajectory": TRAJECTORY_WORDS.get(label, label), "Pixels": n,
+                         "Area [ha]": area, "Share of valid area [%]": share})
     return pd.DataFrame(rows)
 
 
 def rule_area_table(trends: xr.Dataset) -> pd.DataFrame:
-    """Area [ha] and share [%] of the map flagged by each modification rule.
+    """Pixels, area [ha] and share of the valid area [%] flagged by each modification rule.
 
-    Reads the per-rule summaries a trend product carries (``rule_pixels``, ``rule_area``,
-    ``rule_share`` and ``rule_expression`` on the ``rule`` dimension); an empty table when the product
-    holds no rules.
+    Reads the per-rule summaries a trend product carries (``rule_pixels``, ``rule_area``, ``rule_share``
+    and ``rule_expression`` on the ``rule`` dimension); an empty table when the product holds no rules.
     """
-    columns = ["rule", "expression", "pixels", "area_ha", "share_pct"]
+    columns = ["Rule", "Expression", "Pixels", "Area [ha]", "Share of valid area [%]"]
     if "rule_area" not in trends:
         return pd.DataFrame(columns=columns)
     return pd.DataFrame({
-        "rule": [str(r) for r in trends["rule"].values],
-        "expression": [str(e) for e in trends["rule_expression"].values],
-        "pixels": np.asarray(trends["rule_pixels"].values, dtype=np.int64),
-        "area_ha": np.asarray(trends["rule_area"].values, dtype=float),
-        "share_pct": 100.0 * np.asarray(trends["rule_share"].values, dtype=float),
+        "Rule": [str(r) for r in trends["rule"].values],
+        "Expression": [str(e) for e in trends["rule_expression"].values],
+        "Pixels": np.asarray(trends["rule_pixels"].values, dtype=np.int64),
+        "Area [ha]": np.asarray(trends["rule_area"].values, dtype=float),
+        "Share of valid area [%]": 100.0 * np.asarray(trends["rule_share"].values, dtype=float),
     }, columns=columns)
+
+
+def excluded_area(trends: xr.Dataset) -> dict[str, float]:
+    """Area [ha] of the whole map, of pixels without data on any date, and of pixels with too few dates."""
+    traj = trends["trajectory"]
+    labels = _flag_labels(traj)
+    insufficient = [c for c, lab in labels.items() if lab == "insufficient_data"]
+    row_ha = _row_area_ha(trends)
+    codes = np.asarray(traj.isel(endmember=0).transpose("y", "x").values)
+    few = np.isin(codes, insufficient)
+    out = {"map": float(codes.shape[1] * row_ha.sum()), "insufficient": float((few.sum(axis=1) * row_ha).sum())}
+    if "n_valid" in trends:
+        n_valid = np.asarray(trends["n_valid"].isel(endmember=0).transpose("y", "x").values)
+        none = n_valid == 0
+        out["no_data"] = float((none.sum(axis=1) * row_ha).sum())
+    return out
+
+
+def zone_area_tables(trends: xr.Dataset) -> dict[str, pd.DataFrame]:
+    """Per-zone tables a trend product carries (``unmix trends --zones``): trajectories and rules per zone.
+
+    Returns
+    -------
+    dict
+        ``"zone_trajectory_areas"`` (Zone, Endmember, Trajectory, Area [ha], Share of the zone's valid area
+        [%]) and ``"zone_rule_areas"`` (Zone, Rule, Area [ha], Share [%]) where present.
+    """
+    out = {}
+    if "trajectory_zone_area" in trends:
+        area = trends["trajectory_zone_area"].load()
+        share = trends["trajectory_zone_share"].load()
+        cls = [d for d in area.dims if d not in ("endmember", "zone")][0]
+        rows = []
+        for zone in area["zone"].values:
+            for em in area["endmember"].values:
+                for c in area[cls].values:
+                    sel = {"zone": zone, "endmember": em, cls: c}
+                    rows.append({"Zone": str(zone), "Endmember": str(em),
+                                 "Trajectory": TRAJECTORY_WORDS.get(str(c), str(c)),
+                                 "Area [ha]": float(area.sel(sel)), "Share of the zone's valid area [%]":
+                                 float(share.sel(sel))})
+        out["zone_trajectory_areas"] = pd.DataFrame(rows)
+    if "rule_zone_area" in trends:
+        area = trends["rule_zone_area"].load()
+        share = trends["rule_zone_share"].load()
+        rows = []
+        for z in area["zone"].values:
+            for r in area["rule"].values:
+                sel = {"zone": z, "rule": r}
+                if "rule_state" in area.dims:
+                    sel["rule_state"] = "true"
+                rows.append({"Zone": str(z), "Rule": str(r), "Area [ha]": float(area.sel(sel)),
+                             "Share of the zone's valid area [%]": float(share.sel(sel))})
+        out["zone_rule_areas"] = pd.DataFrame(rows)
+    return out
+
+
+def from_to_table(trends: xr.Dataset) -> pd.DataFrame | None:
+    """The cover change a trend product carries (``unmix trends --cover-change``): hectares moving from each
+    class of the first period (rows) to each class of the second (columns), per zone; None without it."""
+    if "cover_change_area" not in trends:
+        return None
+    area = trends["cover_change_area"].load()
+    periods = [str(p) for p in trends["period"].values] if "period" in trends.coords else ["first", "last"]
+    rows = []
+    for zone in area["zone"].values:
+        for f in area["from_class"].values:
+            row = {"Zone": str(zone), f"From ({periods[0]})": str(f)}
+            for t in area["to_class"].values:
+                row[f"to {t} [ha]"] = float(area.sel(zone=zone, from_class=f, to_class=t))
+            rows.append(row)
+    return pd.DataFrame(rows)
 
 
 def ledger_table(ledger: xr.Dataset) -> pd.DataFrame:
