@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import re
+
+import numpy as np
 import pandas as pd
 import pytest
 
@@ -19,15 +22,43 @@ def products(tmp_path_factory):
 def test_report_writes_page_and_tables(products, tmp_path, capsys):
     out = tmp_path / "rep"
     code = main(["report", str(products / "trends.nc"), "--fractions", str(products / "fractions.nc"),
+                 "--zones", str(products / "districts.geojson"), "--zone-field", "district",
+                 "--points", str(products / "points.csv"), "--assessment", str(products / "assessment"),
                  "--out", str(out), "--title", "Test title"])
     assert code == 0, capsys.readouterr().err
     page = (out / "report.html").read_text(encoding="utf-8")
     assert "Test title" in page and "Validate them with field observations" in page
+    # every section the deliverable names
+    for heading in ("Cover fractions", "Trends and changes", "Areas", "Per zone and trajectory",
+                    "Cover change between periods", "Time series", "Accuracy and sample-based areas",
+                    "Data quality", "Dates used and left out", "Methods in plain words",
+                    "What each trajectory label means", "Parameters of this run", "References"):
+        assert f">{heading}<" in page, heading
+    # every figure is embedded and opens as an image (decoded with matplotlib's PNG reader), and is also
+    # written beside the page
+    import base64
+    import io
+
+    from matplotlib import image
+
+    embedded = re.findall(r'src="data:image/png;base64,([^"]+)"', page)
+    files = sorted((out / "figures").glob("*.png"))
+    assert len(embedded) == len(files) >= 10
+    for data in embedded:
+        assert image.imread(io.BytesIO(base64.b64decode(data)), format="png").ndim == 3
     areas = pd.read_csv(out / "trajectory_areas.csv")
     # every pixel of each endmember map has exactly one label: 48 x 48 pixels per endmember
-    assert (areas.groupby("endmember")["pixels"].sum() == 48 * 48).all()
+    assert (areas.groupby("Endmember")["Pixels"].sum() == 48 * 48).all()
+    # 30 m pixels are 0.09 ha (unit definition)
+    np.testing.assert_allclose(areas["Area [ha]"], areas["Pixels"] * 0.09, rtol=1e-9)
     rules = pd.read_csv(out / "rule_areas.csv")
-    assert set(rules["rule"]) == {"desertification", "clearing", "recovery"}
+    assert set(rules["Rule"]) == {"desertification", "clearing", "recovery"}
+    # the map's area in the page with a thousands separator (48 x 48 x 0.09 ha = 207.36 ha, no separator;
+    # the cover-change table's classes and the ledger are there)
+    assert "The map covers 207.4 ha" in page
+    ledger = pd.read_csv(products / "dates.csv", keep_default_na=False)
+    shown = pd.read_csv(out / "dates.csv", keep_default_na=False)
+    assert shown["Date"].tolist() == ledger["date"].tolist()
 
 
 def test_report_refuses_overwrite_and_non_trend_products(products, tmp_path, capsys):
