@@ -95,7 +95,7 @@ def test_killed_writer_leaves_no_product_and_next_run_cleans_up(job, capsys):
     assert ".fractions.nc.claim" in hidden(out) and tmp.name in hidden(out)  # nobody could clean up
     # the next run finds the claim of a dead process: it removes it and the temporary file, and succeeds
     assert main(fractions_args(info, library, out)) == 0, capsys.readouterr().err
-    assert visible(out) == ["fractions.nc"] and hidden(out) == []
+    assert visible(out) == ["dates.csv", "fractions.nc"] and hidden(out) == []
     assert open_product(out / "fractions.nc")["fractions"].shape == (4, 3, 24, 20)
 
 
@@ -121,7 +121,7 @@ def test_concurrent_run_fails_at_once_naming_the_other(job):
     (out.parent / "go").touch()
     _, err = first.communicate(timeout=120)
     assert first.returncode == 0, err
-    assert visible(out) == ["fractions.nc"] and hidden(out) == []
+    assert visible(out) == ["dates.csv", "fractions.nc"] and hidden(out) == []
 
 
 def test_two_runs_started_together_give_one_product(job):
@@ -132,7 +132,7 @@ def test_two_runs_started_together_give_one_product(job):
     (_, err), _ = next(r for r in results if r[1] == 2)
     line = one_error_line(err)
     assert "being written by another run" in line or "exists already" in line
-    assert visible(out) == ["fractions.nc"] and hidden(out) == []
+    assert visible(out) == ["dates.csv", "fractions.nc"] and hidden(out) == []
 
 
 @pytest.mark.parametrize("limit", [2_000, 60_000])  # while netCDF4 defines the file / while chunks are stored
@@ -159,7 +159,7 @@ def test_failed_overwrite_keeps_the_old_set(job, capsys):
     info, library, out = job
     assert main(fractions_args(info, library, out, "--cog")) == 0, capsys.readouterr().err
     before = {name: (out / name).read_bytes() for name in visible(out)}
-    assert len(before) == 4
+    assert len(before) == 5  # fractions.nc, dates.csv and three COGs
     code, _, err = run_child(fractions_args(info, library, out, "--cog", "--overwrite", "--constraint",
                                             "sum-to-one"), fsize_at_cog=3_000)
     assert code == 2, err
