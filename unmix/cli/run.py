@@ -169,7 +169,7 @@ def run(plan_file: Path, dry_run: bool, out: Path | None, overwrite: bool) -> No
     'unmix plan extract PRODUCT' writes it back to a file that repeats the run. 'unmix plan
     template PLAN.toml' writes a commented plan to start from.
     """
-    from ..io.plan import read_plan
+    from ..io.plan import make_output_folder, read_plan
     from ..io.products.provenance import recording_plan
     from .main import cli
 
@@ -180,6 +180,7 @@ def run(plan_file: Path, dry_run: bool, out: Path | None, overwrite: bool) -> No
         for _, args in steps:
             click.echo("$ unmix " + shlex.join(args))
         return
+    make_output_folder(plan.data["outputs"]["folder"])
     with recording_plan(plan.text):
         for number, (name, args) in enumerate(steps, start=1):
             click.echo("$ unmix " + shlex.join(args))

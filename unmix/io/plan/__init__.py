@@ -7,8 +7,8 @@ exclude each other) and normalises it; :func:`template_text` is the commented te
 
 from .read import Plan, parse_plan, read_plan
 from .schema import ENDMEMBER_SOURCES, Key, Section, schema
-from .stored import stored_plan, write_plan
+from .stored import make_output_folder, stored_plan, write_plan
 from .toml import dumps, format_value, template_text
 
-__all__ = ["Plan", "read_plan", "parse_plan", "stored_plan", "write_plan", "template_text", "dumps", "format_value", "schema",
+__all__ = ["Plan", "read_plan", "parse_plan", "stored_plan", "write_plan", "make_output_folder", "template_text", "dumps", "format_value", "schema",
            "Key", "Section", "ENDMEMBER_SOURCES"]

@@ -8,7 +8,25 @@ from pathlib import Path
 
 from ...errors import PlanError
 
-__all__ = ["stored_plan", "write_plan"]
+__all__ = ["stored_plan", "write_plan", "make_output_folder"]
+
+
+def make_output_folder(path: str | os.PathLike) -> Path:
+    """Create the plan's output folder (and its parents) before the first step writes into it.
+
+    The library steps (``endmembers extract`` / ``prune``) write into an existing folder only; the product
+    steps create theirs. A folder that cannot be made is one :class:`~unmix.errors.ProductWriteError`.
+    """
+    from ..products.stale import probe_folder
+    from ..products.write_errors import write_error
+
+    path = Path(path)
+    probe_folder(path)
+    try:
+        path.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise write_error(path, exc, "create the output folder", before=True) from None
+    return path
 
 
 def write_plan(path: str | os.PathLike, text: str, *, overwrite: bool = False) -> Path:

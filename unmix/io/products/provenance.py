@@ -49,7 +49,7 @@ def plan_attrs() -> dict[str, str]:
 
     Examples
     --------
-    >>> with recording_plan("x = 1\n"):
+    >>> with recording_plan("x = 1\\n"):
     ...     plan_attrs()["plan_sha256"][:12]
     '9e26bf369911'
     >>> plan_attrs()
