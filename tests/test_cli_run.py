@@ -139,6 +139,7 @@ def test_extraction_runs_first_and_its_library_stores_the_plan(make_stack, tmp_p
                         "[report]\nrun = false")
     text = text.replace('# sensor = "landsat-8-oli"', 'sensor = "landsat-8-oli"')
     text = text.replace('# band_names = ["B2"', 'band_names = ["B2"')
+    text = text.replace("\ncog = false\n\n", "\ncog = true\n\n", 1)  # [unmixing] cog: GeoTIFFs store the plan too
     plan_file = tmp_path / "PLAN.toml"
     plan_file.write_text(text, encoding="utf-8")
     assert main(["run", str(plan_file)]) == 0, capsys.readouterr().err
@@ -150,6 +151,14 @@ def test_extraction_runs_first_and_its_library_stores_the_plan(make_stack, tmp_p
     assert sidecar["plan_sha256"] == product["attrs"]["plan_sha256"]
     assert hashlib.sha256(sidecar["plan"].encode("utf-8")).hexdigest() == sidecar["plan_sha256"]
     assert product["attrs"]["input_files"].endswith(str(out / "endmembers.csv"))
+    assert main(["plan", "extract", str(out / "endmembers.csv"), "--out", str(tmp_path / "BACK.toml")]) == 0
+    assert (tmp_path / "BACK.toml").read_text(encoding="utf-8") == sidecar["plan"]
+    import rasterio
+
+    cogs = sorted(out.glob("fractions_*.tif"))
+    assert len(cogs) == 3
+    with rasterio.open(cogs[0]) as src:  # GDAL's metadata, read by rasterio
+        assert src.tags()["plan_sha256"] == sidecar["plan_sha256"] and src.tags()["plan"] == sidecar["plan"]
 
 
 def test_a_failing_step_stops_the_run_with_one_line_naming_it(planned, capsys):
@@ -203,3 +212,125 @@ def test_plan_extract_refuses_a_product_without_a_plan(tmp_path, capsys):
     assert main(["plan", "extract", str(path), "--out", str(tmp_path / "P.toml")]) == 2
     assert "does not match its plan_sha256" in _one_error_line(capsys)
     assert not (tmp_path / "P.toml").exists()
+
+
+def test_every_plan_setting_reaches_its_command_option(tmp_path):
+    # each step's arguments are parsed by the command's own click parser (not run): the values it receives
+    # are the plan's
+    from unmix.cli.main import cli
+    from unmix.cli.run import plan_steps
+    from unmix.io.plan import parse_plan
+
+    for name in ("stack", "rules.txt", "zones.geojson", "bundles.csv", "dates.csv"):
+        (tmp_path / name).mkdir() if name == "stack" else (tmp_path / name).write_text("x", encoding="utf-8")
+    plan = parse_plan("""
+[inputs]
+stack = "stack"
+sensor = "landsat-8-oli"
+band_names = ["B2", "B3", "B4", "B5", "B6", "B7"]
+dates = "dates.csv"
+scale = 0.0001
+offset = -0.2
+[grid]
+align = true
+resampling = "bilinear"
+chunk_size = 256
+[masks]
+qa = 7
+qa_bits = [1, 3]
+reflectance_range = false
+[endmembers.bundles]
+file = "bundles.csv"
+prune = "ear"
+keep = 2
+misfit_limit = 0.03
+[unmixing]
+constraint = "sum-to-one"
+compress_level = 4
+cog = true
+[dates]
+reference_date = 2019-07-15
+registration_band = "B5"
+max_shift = 0.7
+correct_shift = true
+normalise = true
+gain_tolerance = 0.1
+registration_check = false
+radiometry_check = false
+doy_window = [335, 60]
+years = "2005-2014"
+first_date = 2005-01-01
+last_date = "2014-12-31"
+composite = "closest"
+target_doy = 10
+[trends]
+fdr_q = 0.1
+min_slope = 0.01
+min_step = 0.1
+correction = "none"
+season_scheme = "month"
+min_valid = 5
+cog = true
+[rules]
+file = "rules.txt"
+[zones]
+file = "zones.geojson"
+field = "zone_name"
+pixels = "share"
+periods = "2005-2006,2013-2014"
+[report]
+title = "T i t l e"
+folder = "rep"
+[sample]
+run = true
+map = "trajectory"
+endmember = "soil"
+per_class = 30
+min_per_class = 5
+target_se = 0.02
+expected_accuracy = "0.9,stable=0.7"
+seed = 4
+folder = "pts"
+[compute]
+workers = 2
+[outputs]
+folder = "out"
+overwrite = true
+""", base=tmp_path)
+    out = tmp_path / "out"
+    params = {}
+    for name, args in plan_steps(plan.data):
+        command, rest = cli, list(args)
+        while hasattr(command, "get_command"):  # the group, then `endmembers`' subcommands
+            command, rest = command.get_command(None, rest[0]), rest[1:]
+        params[name] = command.make_context(name, rest).params
+    assert list(params) == ["endmembers prune", "fractions", "trends", "report", "sample"]
+    prune = params["endmembers prune"]
+    assert (prune["method"], prune["keep"], prune["overwrite"]) == ("ear", 2, True)
+    assert str(prune["out"]) == str(out / "bundles_pruned.csv")
+    f = params["fractions"]
+    assert f["stack"] == (str(tmp_path / "stack"),) and str(f["library"]) == str(out / "bundles_pruned.csv")
+    assert (f["mesma"], f["max_rmse"], f["constraint"], f["valid_range"]) == (True, 0.03, "sum-to-one", "none")
+    assert (f["compress_level"], f["cog"], f["workers"], f["scheduler"], f["overwrite"]) == (4, True, 2, None, True)
+    assert (f["sensor"], f["band_names"], str(f["dates"])) == ("landsat-8-oli", "B2,B3,B4,B5,B6,B7",
+                                                               str(tmp_path / "dates.csv"))
+    assert (f["scale"], f["offset"], f["qa"], f["qa_bits"]) == (0.0001, -0.2, "7", "1,3")
+    assert (f["align"], f["resampling"], f["chunk_size"]) == (True, "bilinear", 256)
+    assert (f["reference_date"], f["registration_band"], f["max_shift"], f["gain_tolerance"]) == (
+        "2019-07-15", "B5", 0.7, 0.1)
+    assert (f["correct_shift"], f["normalise"], f["no_registration"], f["no_radiometry"]) == (True, True, True, True)
+    assert (f["doy_window"], f["years"], f["date_range"]) == ("335-60", "2005-2014", "2005-01-01,2014-12-31")
+    assert (f["composite"], f["target_doy"]) == ("closest", 10)
+    t = params["trends"]
+    assert (t["fdr_q"], t["min_slope"], t["min_step"], t["correction"], t["season_scheme"], t["min_valid"]) == (
+        0.1, 0.01, 0.1, "none", "month", 5)
+    assert (str(t["rules_file"]), str(t["zones_file"]), t["zone_field"], t["zone_pixels"]) == (
+        str(tmp_path / "rules.txt"), str(tmp_path / "zones.geojson"), "zone_name", "share")
+    assert (t["cover_change"], t["periods"], t["cog"], t["workers"], str(t["out"])) == (
+        False, "2005-2006,2013-2014", True, 2, str(out))
+    r = params["report"]
+    assert (r["title"], str(r["out"]), str(r["fractions"])) == ("T i t l e", str(out / "rep"), str(out / "fractions.nc"))
+    s = params["sample"]
+    assert (s["endmember"], s["per_class"], s["total"], s["min_per_class"], s["target_se"]) == ("soil", 30, None, 5, 0.02)
+    assert (s["expected_accuracy"], s["seed"], str(s["out"]), str(s["trends"])) == (
+        "0.9,stable=0.7", 4, str(out / "pts"), str(out / "trends.nc"))
