@@ -26,11 +26,13 @@ __all__ = [
     "SampleFormatError",
     "SampleReadError",
     "ZoneFileError",
+    "PlanError",
     "UnmixWarning",
     "CollinearityWarning",
     "WindowWarning",
     "EmptyWindowYearWarning",
     "WindowSpreadWarning",
+    "PlanVersionWarning",
 ]
 
 
@@ -110,6 +112,11 @@ class ZoneFileError(InputError):
     not polygons (file and feature named)."""
 
 
+class PlanError(InputError):
+    """A plan file cannot be used: not TOML, an unknown key, a wrong value, a missing key or path, or choices
+    that exclude each other (the file and the dotted key named)."""
+
+
 class UnmixWarning(UserWarning):
     """Root of every warning issued by unmix."""
 
@@ -136,3 +143,7 @@ class EmptyWindowYearWarning(WindowWarning):
 
 class WindowSpreadWarning(WindowWarning):
     """The window's dates of different years lie further apart than the set limit (days and years named)."""
+
+
+class PlanVersionWarning(UnmixWarning):
+    """A plan was written for (or run with) another unmix version: its results may differ."""

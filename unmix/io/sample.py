@@ -24,6 +24,7 @@ import pandas as pd
 
 from ..errors import SampleFormatError, SampleReadError
 from .products.claim import ProductSet
+from .products.provenance import plan_attrs
 
 __all__ = ["SAMPLE_FILES", "write_interpreted_sample", "write_sample", "read_sample", "read_strata", "write_tables", "write_figure",
            "read_reference_points"]
@@ -89,6 +90,7 @@ def write_sample(points: pd.DataFrame, strata: pd.DataFrame, out_dir: str | os.P
         features.append({"type": "Feature", "id": int(rec["point_id"]),
                          "geometry": {"type": "Point", "coordinates": [rec["x"], rec["y"]]},
                          "properties": {k: (v.item() if isinstance(v, np.generic) else v) for k, v in props.items()}})
+    about = {**(about or {}), **plan_attrs()}  # the plan of an `unmix run`, when one is running
     collection = {"type": "FeatureCollection", "name": "sample", **_crs_members(crs_wkt),
                   **({"unmix": about} if about else {}), "features": features}
     with products.writing(out / "sample.geojson") as tmp:

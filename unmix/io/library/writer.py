@@ -81,8 +81,13 @@ def write_library(library: SpectralLibrary, path: str | os.PathLike, *, overwrit
         lines.append(",".join(cells))
     csv_text = "\n".join(lines) + "\n"
 
+    # a plan read with the library belongs to the run that wrote it: only the running plan is recorded
     md = {k: v for k, v in library.metadata.items()
-          if k not in ("path", "spectra", "units", "reflectance_scale", "scale_factor", "add_offset")}
+          if k not in ("path", "spectra", "units", "reflectance_scale", "scale_factor", "add_offset", "plan",
+                       "plan_sha256")}
+    from ..products.provenance import plan_attrs  # here: the products package pulls in xarray
+
+    md.update(plan_attrs())
     old_spectra = library.metadata.get("spectra", {}) or {}
     spectra = {}
     for n, c in zip(library.names, library.classes):

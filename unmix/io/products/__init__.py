@@ -12,14 +12,15 @@ gridded variable names it in its ``grid_mapping`` attribute; ``x``/``y`` carry `
 ``units``; ``time`` is stored as "days since 1970-01-01".
 
 Provenance lives in global attributes: ``unmix_version``, ``command``, ``parameters`` (JSON),
-``endmember_names``, ``input_files``, ``created`` (ISO 8601, UTC), ``history`` and a ``caution``.
+``endmember_names``, ``input_files``, ``created`` (ISO 8601, UTC), ``history`` and a ``caution``; a
+product written by ``unmix run`` also ``plan`` (the normalised plan) and ``plan_sha256``.
 """
 
 from .atomic import atomic_path
 from .cog import write_cog
 from .grid_mapping import grid_mapping_attrs, xy_attrs
 from .netcdf import open_product, write_netcdf
-from .provenance import CAUTION, provenance_attrs
+from .provenance import CAUTION, plan_attrs, provenance_attrs, recording_plan
 
 __all__ = [
     "CAUTION",
@@ -27,6 +28,8 @@ __all__ = [
     "open_product",
     "write_cog",
     "provenance_attrs",
+    "recording_plan",
+    "plan_attrs",
     "grid_mapping_attrs",
     "xy_attrs",
     "atomic_path",

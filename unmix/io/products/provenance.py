@@ -1,11 +1,19 @@
-"""Provenance: the global attributes every unmix product carries, and attribute values a file can hold."""
+"""Provenance: the global attributes every unmix product carries, and attribute values a file can hold.
+
+While ``unmix run`` runs the steps of a plan it sets the plan's normalised text with :func:`recording_plan`;
+every product written meanwhile carries it as ``plan`` with its SHA-256 as ``plan_sha256``
+(:func:`plan_attrs`), so the run can be repeated from any of its products.
+"""
 
 from __future__ import annotations
 
+import contextlib
+import contextvars
 import datetime as _dt
+import hashlib
 import json
 import os
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -13,12 +21,44 @@ import numpy as np
 
 from ... import __version__
 
-__all__ = ["CAUTION", "provenance_attrs"]
+__all__ = ["CAUTION", "provenance_attrs", "recording_plan", "plan_attrs"]
 
 CAUTION = (
     "Fractions are model estimates; validate in the field before they inform land-management "
     "decisions; defer to local regulations and licensed practice."
 )
+
+
+# the plan text of the running `unmix run` (None outside one): a context variable, so a run in another
+# thread or task does not see it
+_PLAN: contextvars.ContextVar[str | None] = contextvars.ContextVar("unmix_plan", default=None)
+
+
+@contextlib.contextmanager
+def recording_plan(text: str) -> Iterator[None]:
+    """While the block runs, every product records the plan ``text`` (see :func:`plan_attrs`)."""
+    token = _PLAN.set(text)
+    try:
+        yield
+    finally:
+        _PLAN.reset(token)
+
+
+def plan_attrs() -> dict[str, str]:
+    """``plan`` (the normalised TOML text) and ``plan_sha256`` of the running plan; empty outside a plan run.
+
+    Examples
+    --------
+    >>> with recording_plan("x = 1\\n"):
+    ...     plan_attrs()["plan_sha256"][:12]
+    '9e26bf369911'
+    >>> plan_attrs()
+    {}
+    """
+    text = _PLAN.get()
+    if text is None:
+        return {}
+    return {"plan": text, "plan_sha256": hashlib.sha256(text.encode("utf-8")).hexdigest()}
 
 
 def _attr_value(value: Any) -> Any:
@@ -79,7 +119,8 @@ def provenance_attrs(
     -------
     dict
         ``Conventions``, ``title``, ``unmix_version``, ``command``, ``parameters``,
-        ``endmember_names``, ``input_files``, ``created``, ``history``, ``caution``.
+        ``endmember_names``, ``input_files``, ``created``, ``history``, ``caution``; inside
+        :func:`recording_plan` also ``plan`` and ``plan_sha256``.
 
     Examples
     --------
@@ -99,6 +140,7 @@ def provenance_attrs(
         "history": f"{created} {command} (unmix {__version__})",
         "caution": CAUTION,
     }
+    attrs.update(plan_attrs())
     if endmember_names is not None:
         attrs["endmember_names"] = ", ".join(str(n) for n in endmember_names)
     if input_files is not None:
