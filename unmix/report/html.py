@@ -123,6 +123,11 @@ def build_report(
         page.add(f"<h2>{html.escape(heading)}</h2>{body}")
     page.tables["parameters"] = parameters_table({"fractions": fractions, "trends": trends})
     page.add(_methods(page.tables["parameters"]))
+    plan = trends.attrs.get("plan")
+    if plan:
+        page.add("<h3>Plan of this run</h3><p>The plan file this run was made from (<code>unmix run</code>); running "
+                 "it again repeats the job.</p><pre style=\"white-space:pre-wrap;overflow-wrap:anywhere;font-size:.8em\">"
+                 + html.escape(str(plan)) + "</pre>")
     page.add(f'<p class="caution"><strong>Caution.</strong> {html.escape(CAUTION)}</p>')
     page.add(f"<p class=\"note\">unmix {__version__}; report built "
              f"{datetime.now(timezone.utc).isoformat(timespec='seconds')}.</p>")

@@ -106,7 +106,7 @@ def parameters_table(products: dict[str, xr.Dataset | None]) -> pd.DataFrame:
             params = {}
         for key, value in params.items():
             rows.append({"Step": step, "Parameter": key.replace("_", " "), "Value": _value_text(value)})
-        for key in ("unmix_version", "command"):
+        for key in ("unmix_version", "command", "plan_sha256"):
             if key in ds.attrs:
                 rows.append({"Step": step, "Parameter": key.replace("_", " "), "Value": str(ds.attrs[key])})
     return pd.DataFrame(rows, columns=["Step", "Parameter", "Value"])
