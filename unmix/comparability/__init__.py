@@ -45,21 +45,29 @@ from .radiometry import (
 )
 from .registration import (
     MAX_SHIFT,
+    MAX_SPREAD,
+    MIN_BLOCK,
+    MIN_PEAK_RATIO,
+    SIGMA,
     WARN_SHIFT,
     BlockShift,
     ShiftEstimate,
+    block_field,
     block_shift,
     block_shifts,
     block_windows,
     combine_block_shifts,
+    field_shift,
+    orientation_field,
     shift_image,
 )
 
 __all__ = [
     "GAIN_TOLERANCE", "MIN_R2", "MadResult", "RadiometricFit", "fit_date", "fit_flag", "invariant_pixels",
     "irmad", "normalise", "orthogonal_regression",
-    "MAX_SHIFT", "WARN_SHIFT", "BlockShift", "ShiftEstimate", "block_shift", "block_shifts", "block_windows",
-    "combine_block_shifts", "shift_image",
+    "MAX_SHIFT", "MAX_SPREAD", "MIN_BLOCK", "MIN_PEAK_RATIO", "SIGMA", "WARN_SHIFT", "BlockShift", "ShiftEstimate",
+    "block_field", "block_shift", "block_shifts", "block_windows", "combine_block_shifts", "field_shift",
+    "orientation_field", "shift_image",
 
     "DAYS_PER_YEAR",
     "DateWindow",
