@@ -44,6 +44,7 @@ from .radiometry import (
     orthogonal_regression,
 )
 from .registration import (
+    MAX_PEAK_SD,
     MAX_SHIFT,
     MAX_SPREAD,
     MIN_BLOCK,
@@ -65,7 +66,7 @@ from .registration import (
 __all__ = [
     "GAIN_TOLERANCE", "MIN_R2", "MadResult", "RadiometricFit", "fit_date", "fit_flag", "invariant_pixels",
     "irmad", "normalise", "orthogonal_regression",
-    "MAX_SHIFT", "MAX_SPREAD", "MIN_BLOCK", "MIN_PEAK_RATIO", "SIGMA", "WARN_SHIFT", "BlockShift", "ShiftEstimate",
+    "MAX_PEAK_SD", "MAX_SHIFT", "MAX_SPREAD", "MIN_BLOCK", "MIN_PEAK_RATIO", "SIGMA", "WARN_SHIFT", "BlockShift", "ShiftEstimate",
     "block_field", "block_shift", "block_shifts", "block_windows", "combine_block_shifts", "field_shift",
     "orientation_field", "shift_image",
 

@@ -22,7 +22,7 @@ import numpy as np
 from scipy import ndimage
 
 __all__ = ["BlockShift", "ShiftEstimate", "block_shift", "block_shifts", "block_windows", "combine_block_shifts",
-           "block_field", "field_shift", "orientation_field", "shift_image", "WARN_SHIFT", "MAX_SHIFT", "MAX_SPREAD", "MIN_BLOCK", "MIN_PEAK_RATIO",
+           "block_field", "field_shift", "orientation_field", "shift_image", "WARN_SHIFT", "MAX_SHIFT", "MAX_PEAK_SD", "MAX_SPREAD", "MIN_BLOCK", "MIN_PEAK_RATIO",
            "SIGMA"]
 
 #: Shift [pixel] above which a date is worth a warning: about a fifth of a pixel keeps change error
@@ -39,6 +39,11 @@ MIN_BLOCK = 64
 SIGMA = 1.0
 #: Correlation peak / next highest peak below which a block is not measured (see :func:`block_shift`).
 MIN_PEAK_RATIO = 1.3
+#: Largest precision [pixel] of a block's correlation peak (see :func:`block_shift`). The proxy (slope
+#: noise over peak curvature) ignores the reference's own noise, shared by every date: on the invented demo
+#: scene actual errors reached about 8 times it, so 0.025 px keeps accepted shifts within about the warning
+#: level of 0.2 px (a choice of this package, calibrated there).
+MAX_PEAK_SD = 0.025
 #: Spread between blocks [pixel] above which a date's shift is not stated: the blocks disagree by more
 #: than the warning level itself (:data:`WARN_SHIFT`), so the median cannot be trusted to it.
 MAX_SPREAD = WARN_SHIFT
@@ -48,14 +53,16 @@ _MAD_TO_SD = 1.4826  # median absolute deviation of a normal sample -> its stand
 
 @dataclass(frozen=True)
 class BlockShift:
-    """Shift of one block: ``dy``, ``dx`` [pixel], the registration ``error``, a ``reason`` ('' if measured)
-    and the ``peak_ratio`` of the correlation peak to the next highest (NaN when not reached)."""
+    """Shift of one block: ``dy``, ``dx`` [pixel], the registration ``error``, a ``reason`` ('' if measured),
+    the ``peak_ratio`` of the correlation peak to the next highest and the peak's precision ``peak_sd``
+    [pixel] (NaN when not reached; see :func:`block_shift`)."""
 
     dy: float
     dx: float
     error: float
     reason: str = ""
     peak_ratio: float = np.nan
+    peak_sd: float = np.nan
 
 
 @dataclass(frozen=True)
@@ -137,21 +144,32 @@ def orientation_field(image: np.ndarray, valid: np.ndarray, *, sigma: float = SI
     return out
 
 
-def _peak_ratio(cc: np.ndarray, exclude: float) -> tuple[tuple[int, int], float]:
-    """Highest |cross-correlation| and its ratio to the highest one further than ``exclude`` pixels away
-    (circular distances: the correlation wraps around)."""
+def _peak_quality(cc: np.ndarray, exclude: float) -> tuple[float, float]:
+    """Quality of the highest |cross-correlation| ``C``: its ratio to the highest value further than
+    ``exclude`` pixels away, and a precision [pixel] of its position: the noise of the slope of ``C``
+    away from the peak (standard deviation of central differences) over the peak's curvature (second
+    differences), the larger of the two axes. Distances are circular: the correlation wraps around."""
     mag = np.abs(cc)
-    peak = np.unravel_index(int(np.argmax(mag)), mag.shape)
-    dy = np.abs(np.arange(mag.shape[0]) - peak[0])
-    dx = np.abs(np.arange(mag.shape[1]) - peak[1])
-    dy, dx = np.minimum(dy, mag.shape[0] - dy), np.minimum(dx, mag.shape[1] - dx)
+    ny, nx = mag.shape
+    py, px = np.unravel_index(int(np.argmax(mag)), mag.shape)
+    dy, dx = np.abs(np.arange(ny) - py), np.abs(np.arange(nx) - px)
+    dy, dx = np.minimum(dy, ny - dy), np.minimum(dx, nx - dx)
     far = np.hypot(dy[:, None], dx[None, :]) > exclude
-    second = float(mag[far].max()) if far.any() else 0.0
-    return peak, (float(mag[peak]) / second if second > 0 else np.inf)
+    if not far.any():
+        return np.inf, 0.0
+    second = float(mag[far].max())
+    ratio = float(mag[py, px]) / second if second > 0 else np.inf
+    curv_y = 2 * mag[py, px] - mag[(py + 1) % ny, px] - mag[py - 1, px]
+    curv_x = 2 * mag[py, px] - mag[py, (px + 1) % nx] - mag[py, px - 1]
+    slope_y = (np.roll(mag, -1, axis=0) - np.roll(mag, 1, axis=0))[far].std() / 2
+    slope_x = (np.roll(mag, -1, axis=1) - np.roll(mag, 1, axis=1))[far].std() / 2
+    sd = max(slope_y / curv_y if curv_y > 0 else np.inf, slope_x / curv_x if curv_x > 0 else np.inf)
+    return ratio, float(sd)
 
 
 def block_shift(reference: np.ndarray, moving: np.ndarray, *, upsample: int = 100, min_valid: float = 0.5,
-                sigma: float = SIGMA, min_peak_ratio: float = MIN_PEAK_RATIO) -> BlockShift:
+                sigma: float = SIGMA, min_peak_ratio: float = MIN_PEAK_RATIO,
+                max_peak_sd: float = MAX_PEAK_SD) -> BlockShift:
     """Sub-pixel shift of one block by upsampled cross-correlation of sign-free gradient fields.
 
     The two dates are turned into their :func:`orientation_field` (all bands summed), cross-correlated by
@@ -161,7 +179,11 @@ def block_shift(reference: np.ndarray, moving: np.ndarray, *, upsample: int = 10
     pixels away must reach ``min_peak_ratio``. A block of noise and smooth ground has a ratio near 1 and
     a random peak; one whole edge (a field, a dune front) gives 1.4 and more (measured on the invented
     scene of :mod:`unmix.demo`; a peak-to-secondary-peak test as in correlation tracking, Bolme et al.
-    2010). A real shift of a block without edges is thus flagged as not measured, never invented.
+    2010). Nor is it measured when the peak's position is imprecise: the noise of the correlation's slope
+    away from the peak over the peak's curvature (the error propagation of a peak fit: position error =
+    slope error / curvature) must stay within ``max_peak_sd`` (:data:`MAX_PEAK_SD`). A block without
+    lasting edges, or whose edges are faint against the noise, is thus flagged as not measured, never
+    given an invented shift.
 
     Parameters
     ----------
@@ -176,13 +198,15 @@ def block_shift(reference: np.ndarray, moving: np.ndarray, *, upsample: int = 10
         Scale of the Gaussian-derivative gradients [pixel].
     min_peak_ratio : float
         Smallest ratio of the correlation peak to the highest correlation away from it.
+    max_peak_sd : float
+        Largest precision [pixel] of the peak's position (see above).
 
     Returns
     -------
     BlockShift
         ``dy``, ``dx`` [pixel] that align ``moving`` to ``reference`` (see the module's sign convention),
-        the normalised root-mean-square registration error, the peak ratio, and a reason ('' when
-        measured; otherwise the shift is NaN).
+        the normalised root-mean-square registration error, a reason ('' when measured; otherwise the
+        shift is NaN), the peak ratio and the peak's precision.
 
     References
     ----------
@@ -204,7 +228,8 @@ def block_shift(reference: np.ndarray, moving: np.ndarray, *, upsample: int = 10
     """
     both = _valid(reference) & _valid(moving)
     return field_shift(block_field(reference, valid=both, sigma=sigma), block_field(moving, valid=both, sigma=sigma),
-                       upsample=upsample, min_valid=min_valid, sigma=sigma, min_peak_ratio=min_peak_ratio)
+                       upsample=upsample, min_valid=min_valid, sigma=sigma, min_peak_ratio=min_peak_ratio,
+                       max_peak_sd=max_peak_sd)
 
 
 def _valid(block: np.ndarray) -> np.ndarray:
@@ -235,7 +260,8 @@ def block_field(block: np.ndarray, *, valid: np.ndarray | None = None,
 
 
 def field_shift(reference: tuple, moving: tuple, *, upsample: int = 100, min_valid: float = 0.5,
-                sigma: float = SIGMA, min_peak_ratio: float = MIN_PEAK_RATIO) -> BlockShift:
+                sigma: float = SIGMA, min_peak_ratio: float = MIN_PEAK_RATIO,
+                max_peak_sd: float = MAX_PEAK_SD) -> BlockShift:
     """:func:`block_shift` from two :func:`block_field` results (the reference's computed once).
 
     Each field is zero within ``3 sigma`` of the missing pixels of its mask (best the pixels valid on both
@@ -256,13 +282,17 @@ def field_shift(reference: tuple, moving: tuple, *, upsample: int = 100, min_val
     product = f_ref * f_mov.conj()
     if not np.any(product):
         return BlockShift(np.nan, np.nan, np.nan, "no texture: no gradients in the block")
-    _, ratio = _peak_ratio(np.fft.ifft2(product), 3 * sigma + 1)
+    ratio, peak_sd = _peak_quality(np.fft.ifft2(product), 3 * sigma + 1)
     if not ratio >= min_peak_ratio:
         return BlockShift(np.nan, np.nan, np.nan, f"weak correlation peak: {ratio:.2f} times the next highest, "
-                          f"at least {min_peak_ratio} needed (too little lasting texture)", ratio)
+                          f"at least {min_peak_ratio} needed (too little lasting texture)", ratio, peak_sd)
+    if not peak_sd <= max_peak_sd:
+        return BlockShift(np.nan, np.nan, np.nan, f"imprecise correlation peak: about {peak_sd:.3f} px from the "
+                          f"correlation's noise, at most {max_peak_sd} px allowed (too little contrast for the "
+                          "noise; more bands may help)", ratio, peak_sd)
     shift, error, _ = phase_cross_correlation(f_ref, f_mov, upsample_factor=int(upsample), space="fourier",
                                               normalization=None)
-    return BlockShift(float(shift[0]), float(shift[1]), float(error), "", ratio)
+    return BlockShift(float(shift[0]), float(shift[1]), float(error), "", ratio, peak_sd)
 
 
 def block_windows(shape: tuple[int, int], n_blocks: int = 9, block: int = 256, *,
@@ -329,7 +359,8 @@ def combine_block_shifts(shifts: Sequence[BlockShift], *, min_blocks: int = 3,
 
 def block_shifts(reference: np.ndarray, moving: np.ndarray, blocks: Sequence[tuple[slice, slice]], *,
                  upsample: int = 100, min_valid: float = 0.5, min_blocks: int = 3, sigma: float = SIGMA,
-                 min_peak_ratio: float = MIN_PEAK_RATIO, max_spread: float = MAX_SPREAD) -> ShiftEstimate:
+                 min_peak_ratio: float = MIN_PEAK_RATIO, max_peak_sd: float = MAX_PEAK_SD,
+                 max_spread: float = MAX_SPREAD) -> ShiftEstimate:
     """Shift of ``moving`` against ``reference`` as the median over several blocks.
 
     Parameters
@@ -338,7 +369,7 @@ def block_shifts(reference: np.ndarray, moving: np.ndarray, blocks: Sequence[tup
         Two dates of one or several bands; NaN is no data.
     blocks : sequence of (slice, slice)
         Windows to measure (see :func:`block_windows`).
-    upsample, min_valid, sigma, min_peak_ratio
+    upsample, min_valid, sigma, min_peak_ratio, max_peak_sd
         Passed to :func:`block_shift`.
     min_blocks, max_spread
         Fewest blocks that must be measured (capped at the number of blocks given) and the largest spread
@@ -364,7 +395,7 @@ def block_shifts(reference: np.ndarray, moving: np.ndarray, blocks: Sequence[tup
     (-2.0, 4)
     """
     found = [block_shift(reference[(..., *w)], moving[(..., *w)], upsample=upsample, min_valid=min_valid,
-                         sigma=sigma, min_peak_ratio=min_peak_ratio) for w in blocks]
+                         sigma=sigma, min_peak_ratio=min_peak_ratio, max_peak_sd=max_peak_sd) for w in blocks]
     return combine_block_shifts(found, min_blocks=min_blocks, max_spread=max_spread)
 
 

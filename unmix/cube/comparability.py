@@ -22,6 +22,7 @@ import xarray as xr
 
 from unmix.comparability import (
     GAIN_TOLERANCE,
+    MAX_PEAK_SD,
     MAX_SHIFT,
     MAX_SPREAD,
     MIN_PEAK_RATIO,
@@ -150,8 +151,9 @@ def _measure_dates(cube, windows, i_ref, *, bands, picks, settings):
     return dask.compute(*tasks)
 
 
-def _registration_settings(upsample, min_valid, min_blocks, sigma, min_peak_ratio, max_spread) -> dict:
-    return {"block": dict(upsample=upsample, min_valid=min_valid, sigma=sigma, min_peak_ratio=min_peak_ratio),
+def _registration_settings(upsample, min_valid, min_blocks, sigma, min_peak_ratio, max_peak_sd, max_spread) -> dict:
+    return {"block": dict(upsample=upsample, min_valid=min_valid, sigma=sigma, min_peak_ratio=min_peak_ratio,
+                          max_peak_sd=max_peak_sd),
             "combine": dict(min_blocks=min_blocks, max_spread=max_spread)}
 
 
@@ -183,12 +185,14 @@ def _shift_dataset(times, results, i_ref, *, band_names, block, n_windows, setti
                          "2003; Guizar-Sicairos et al. 2008)", "band": ",".join(band_names),
                "reference": _date_label(ref), "block": block, "n_blocks": n_windows,
                "upsample": settings["block"]["upsample"], "min_peak_ratio": settings["block"]["min_peak_ratio"],
+               "max_peak_sd": settings["block"]["max_peak_sd"],
                "max_spread": settings["combine"]["max_spread"]})
 
 
 def measure_registration(cube: xr.DataArray, *, band, reference, n_blocks: int = 9, block: int = 256,
                          upsample: int = 20, min_valid: float = 0.5, min_blocks: int = 3, sigma: float = SIGMA,
-                         min_peak_ratio: float = MIN_PEAK_RATIO, max_spread: float = MAX_SPREAD) -> xr.Dataset:
+                         min_peak_ratio: float = MIN_PEAK_RATIO, max_peak_sd: float = MAX_PEAK_SD,
+                         max_spread: float = MAX_SPREAD) -> xr.Dataset:
     """Sub-pixel shift of every date against ``reference`` by correlating gradient fields over blocks.
 
     Only ``n_blocks`` windows of ``block`` x ``block`` pixels (at least :data:`~unmix.comparability.MIN_BLOCK`;
@@ -206,7 +210,7 @@ def measure_registration(cube: xr.DataArray, *, band, reference, n_blocks: int =
         keeps registered dates within 0.05 px, the near-infrared alone within about 0.2 px).
     reference : date or None
         Reference date (see :func:`reference_date`; None: the date with most valid pixels).
-    n_blocks, block, upsample, min_valid, min_blocks, sigma, min_peak_ratio, max_spread
+    n_blocks, block, upsample, min_valid, min_blocks, sigma, min_peak_ratio, max_peak_sd, max_spread
         Layout of the blocks and the kernel's settings (:func:`unmix.comparability.block_shifts`).
 
     Returns
@@ -231,7 +235,8 @@ def measure_registration(cube: xr.DataArray, *, band, reference, n_blocks: int =
     ref = reference_date(cube, reference)
     windows = block_layout(cube, n_blocks, block)
     i_ref = int(np.flatnonzero(cube["time"].values == ref)[0])
-    settings = _registration_settings(upsample, min_valid, min_blocks, sigma, min_peak_ratio, max_spread)
+    settings = _registration_settings(upsample, min_valid, min_blocks, sigma, min_peak_ratio, max_peak_sd,
+                                      max_spread)
     sub = cube.isel(band=idx)
     results = _measure_dates(sub, windows, i_ref, bands=list(range(len(idx))), picks=None, settings=settings)
     return _shift_dataset(cube["time"].values, results, i_ref, band_names=[str(b) for b in sub["band"].values],
@@ -345,7 +350,7 @@ def measure_comparability(cube: xr.DataArray, *, band, reference, n_blocks: int 
                           upsample: int = 20, min_valid: float = 0.5, min_blocks: int = 3, sample: int = SAMPLE,
                           seed: int = 0, threshold: float = 0.95, min_pixels: int = 50, min_r2: float = MIN_R2,
                           gain_tolerance: float = GAIN_TOLERANCE, sigma: float = SIGMA,
-                          min_peak_ratio: float = MIN_PEAK_RATIO,
+                          min_peak_ratio: float = MIN_PEAK_RATIO, max_peak_sd: float = MAX_PEAK_SD,
                           max_spread: float = MAX_SPREAD) -> tuple[xr.Dataset, xr.Dataset]:
     """Registration and radiometry from one read of the blocks (all bands).
 
@@ -358,7 +363,8 @@ def measure_comparability(cube: xr.DataArray, *, band, reference, n_blocks: int 
     ref = reference_date(cube, reference)
     i_ref = int(np.flatnonzero(cube["time"].values == ref)[0])
     windows = block_layout(cube, n_blocks, block)
-    settings = _registration_settings(upsample, min_valid, min_blocks, sigma, min_peak_ratio, max_spread)
+    settings = _registration_settings(upsample, min_valid, min_blocks, sigma, min_peak_ratio, max_peak_sd,
+                                      max_spread)
     results = _measure_dates(cube, windows, i_ref, bands=idx, picks=_window_picks(windows, sample, seed),
                              settings=settings)
     shifts = _shift_dataset(cube["time"].values, results, i_ref, block=block, n_windows=len(windows),
