@@ -1,7 +1,8 @@
 """Comparability of the dates of a stack: co-registration, radiometric normalisation, phenological windows.
 
 Kernels on plain numpy arrays (numpy, scipy, scikit-image only): :mod:`.registration` measures the
-sub-pixel shift of a date against a reference by phase correlation over blocks and resamples it;
+sub-pixel shift of a date against a reference by correlating sign-free gradient fields
+(:mod:`.orientation`) over blocks and resamples it;
 :mod:`.radiometry` picks pseudo-invariant pixels by IR-MAD and fits gain and offset per band by
 orthogonal regression; :mod:`.phenology` selects dates by day-of-year window, year and range and
 reduces each year to a composite. The cube layer (:mod:`unmix.cube.comparability`) maps them over a stack.
@@ -16,6 +17,7 @@ Canty, M. J. and Nielsen, A. A. (2008). doi:10.1016/j.rse.2007.07.013
 
 from __future__ import annotations
 
+from .orientation import SIGMA, noise_sd, orientation_field
 from .phenology import (
     DAYS_PER_YEAR,
     DateWindow,
@@ -49,7 +51,6 @@ from .registration import (
     MAX_SPREAD,
     MIN_BLOCK,
     MIN_PEAK_RATIO,
-    SIGMA,
     WARN_SHIFT,
     BlockShift,
     ShiftEstimate,
@@ -59,16 +60,15 @@ from .registration import (
     block_windows,
     combine_block_shifts,
     field_shift,
-    orientation_field,
     shift_image,
 )
 
 __all__ = [
     "GAIN_TOLERANCE", "MIN_R2", "MadResult", "RadiometricFit", "fit_date", "fit_flag", "invariant_pixels",
     "irmad", "normalise", "orthogonal_regression",
-    "MAX_PEAK_SD", "MAX_SHIFT", "MAX_SPREAD", "MIN_BLOCK", "MIN_PEAK_RATIO", "SIGMA", "WARN_SHIFT", "BlockShift", "ShiftEstimate",
+    "MAX_PEAK_SD", "MAX_SHIFT", "MAX_SPREAD", "MIN_BLOCK", "MIN_PEAK_RATIO", "WARN_SHIFT", "BlockShift", "ShiftEstimate",
     "block_field", "block_shift", "block_shifts", "block_windows", "combine_block_shifts", "field_shift",
-    "orientation_field", "shift_image",
+    "SIGMA", "noise_sd", "orientation_field", "shift_image",
 
     "DAYS_PER_YEAR",
     "DateWindow",

@@ -1,4 +1,10 @@
-"""Sub-pixel co-registration of two dates by phase correlation over blocks of the scene.
+"""Sub-pixel co-registration of two dates by cross-correlation of gradient fields over blocks of the scene.
+
+Each block of each date becomes a sign-free gradient field (all bands summed, each in its own noise
+units), so the correlation follows edges that last rather than levels that change with seasons and
+cover; the peak is refined on an upsampled grid. Guards keep a false shift from being stated: blocks of
+at least 64 pixels (a small scene gets fewer, down to one), a correlation peak that must stand out and
+be precise, and blocks that must agree. What cannot be measured gets a reason, never a shift.
 
 Sign convention (used everywhere in this package): a shift ``(dy, dx)`` is the translation that,
 applied to ``moving`` with :func:`shift_image`, aligns it to ``reference``. A moving image whose
@@ -8,6 +14,10 @@ References
 ----------
 Guizar-Sicairos, M., Thurman, S. T. and Fienup, J. R. (2008). Efficient subpixel image registration
 algorithms. Optics Letters 33(2), 156-158. doi:10.1364/OL.33.000156
+Argyriou, V. and Vlachos, T. (2003). Estimation of sub-pixel motion using gradient cross-correlation.
+Electronics Letters 39(13), 980-982. doi:10.1049/el:20030666
+Granlund, G. H. (1978). In search of a general picture processing operator. Computer Graphics and Image
+Processing 8(2), 155-173. doi:10.1016/0146-664X(78)90047-3
 Townshend, J. R. G., Justice, C. O., Gurney, C. and McManus, J. (1992). The impact of misregistration
 on change detection. IEEE Transactions on Geoscience and Remote Sensing 30(5), 1054-1060.
 doi:10.1109/36.175340
@@ -21,9 +31,11 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import ndimage
 
+from .orientation import SIGMA, orientation_field
+
 __all__ = ["BlockShift", "ShiftEstimate", "block_shift", "block_shifts", "block_windows", "combine_block_shifts",
-           "block_field", "field_shift", "orientation_field", "shift_image", "WARN_SHIFT", "MAX_SHIFT", "MAX_PEAK_SD", "MAX_SPREAD", "MIN_BLOCK", "MIN_PEAK_RATIO",
-           "SIGMA"]
+           "block_field", "field_shift", "shift_image", "WARN_SHIFT", "MAX_SHIFT", "MAX_PEAK_SD", "MAX_SPREAD",
+           "MIN_BLOCK", "MIN_PEAK_RATIO"]
 
 #: Shift [pixel] above which a date is worth a warning: about a fifth of a pixel keeps change error
 #: under 10 % (Townshend et al. 1992; common practice).
@@ -35,8 +47,6 @@ MAX_SHIFT = 0.5
 #: measured with fewer blocks, down to one covering it, rather than smaller ones (on the 160 px scene of
 #: :mod:`unmix.demo` blocks of 48 px measured 0.35-2.8 px on a registered record; a choice of this package).
 MIN_BLOCK = 64
-#: Scale of the Gaussian-derivative gradients [pixel]: smooths sensor noise, keeps edges one pixel apart.
-SIGMA = 1.0
 #: Correlation peak / next highest peak below which a block is not measured (see :func:`block_shift`).
 MIN_PEAK_RATIO = 1.3
 #: Largest precision [pixel] of a block's correlation peak (see :func:`block_shift`). The proxy (slope
@@ -80,68 +90,6 @@ class ShiftEstimate:
     sd: float
     n_blocks: int
     reason: str = ""
-
-
-def _noise_sd(image: np.ndarray, valid: np.ndarray) -> float:
-    """Noise standard deviation of one image from its Laplacian-difference mask (Immerkaer 1996):
-    ``sqrt(pi / 2) * mean |N * I| / 6`` over valid pixels, ``N = [[1, -2, 1], [-2, 4, -2], [1, -2, 1]]``."""
-    second = np.array([1.0, -2.0, 1.0])  # N is the outer product of two second differences
-    resp = np.abs(ndimage.correlate1d(ndimage.correlate1d(image, second, axis=0, mode="nearest"), second,
-                                      axis=1, mode="nearest"))
-    inner = ndimage.binary_erosion(valid, iterations=1, border_value=0)
-    return float(np.sqrt(np.pi / 2) * resp[inner].mean() / 6.0) if inner.any() else 0.0
-
-
-def orientation_field(image: np.ndarray, valid: np.ndarray, *, sigma: float = SIGMA) -> np.ndarray:
-    """Sign-free gradient field of one date summed over its bands, zero where it is not defined.
-
-    Per band: Gaussian-derivative gradient ``g = gx + i gy`` (scale ``sigma`` [pixel]), divided by the band's
-    noise standard deviation (Immerkaer 1996) so each band enters in signal-to-noise units, then put in the
-    double-angle form ``g^2 / |g|`` (Granlund 1978): the orientation of an edge is kept, its sign is not,
-    so an edge whose contrast inverted between the dates (a field cleared, wet and dry seasons, bands
-    whose contrasts run opposite) still matches. Gradients rather than levels make the correlation blind
-    to the broad changes of level that real cover change and seasons bring (Argyriou and Vlachos 2003).
-    Pixels within ``3 sigma`` of no data (or of the block's edge) are zero, so filled gaps make no edges
-    and each date can be transformed once, with its own gaps.
-
-    Parameters
-    ----------
-    image : (rows, cols) or (bands, rows, cols) ndarray
-    valid : (rows, cols) bool ndarray
-        Valid pixels of the date (every band finite); the others are filled before filtering.
-    sigma : float
-
-    Returns
-    -------
-    (rows, cols) complex ndarray
-
-    References
-    ----------
-    Granlund, G. H. (1978). In search of a general picture processing operator. Computer Graphics and Image
-    Processing 8(2), 155-173. doi:10.1016/0146-664X(78)90047-3
-    Argyriou, V. and Vlachos, T. (2003). Estimation of sub-pixel motion using gradient cross-correlation.
-    Electronics Letters 39(13), 980-982. doi:10.1049/el:20030666
-    Immerkaer, J. (1996). Fast noise variance estimation. Computer Vision and Image Understanding 64(2),
-    300-302. doi:10.1006/cviu.1996.0060
-    """
-    image = np.asarray(image, dtype=np.float64)
-    planes = image[None] if image.ndim == 2 else image
-    # the filters reach 3 sigma (truncated there); a pixel whose square footprint touches a filled gap or
-    # the block's edge is zero, so the fill makes no edges of its own
-    reach = int(3.0 * sigma + 0.5)
-    inside = ndimage.binary_erosion(valid, structure=np.ones((3, 3), bool), iterations=reach, border_value=0)
-    out = np.zeros(planes.shape[1:], dtype=np.complex128)
-    for plane in planes:
-        filled = np.where(valid, plane, plane[valid].mean())
-        noise = _noise_sd(filled, valid)
-        if noise <= 0:
-            continue
-        g = (ndimage.gaussian_filter(filled, sigma, order=(0, 1), truncate=3.0)
-             + 1j * ndimage.gaussian_filter(filled, sigma, order=(1, 0), truncate=3.0)) / noise
-        mag = np.abs(g)
-        out += np.where(mag > 0, g * g / np.where(mag > 0, mag, 1.0), 0.0)
-    out[~inside] = 0.0
-    return out
 
 
 def _peak_quality(cc: np.ndarray, exclude: float) -> tuple[float, float]:
