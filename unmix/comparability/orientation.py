@@ -80,6 +80,7 @@ def orientation_field(image: np.ndarray, valid: np.ndarray, *, sigma: float = SI
     --------
     >>> import numpy as np
     >>> step = np.repeat((np.arange(16) >= 8)[None].astype(float), 16, axis=0)  # a vertical edge
+    >>> step += np.random.default_rng(0).normal(0, 0.01, step.shape)  # and sensor noise
     >>> valid = np.ones(step.shape, bool)
     >>> a, b = orientation_field(step, valid), orientation_field(1 - step, valid)  # and its inversion
     >>> bool(np.allclose(a, b)), bool(a[8, 7].real > 0)
