@@ -156,3 +156,22 @@ def test_small_scene_gets_fewer_larger_blocks():
     assert len(wins) == 4
     assert all(wy.stop - wy.start == 64 and wx.stop - wx.start == 64 for wy, wx in wins)
     assert block_windows((160, 160), 9, 256) == [(slice(0, 160), slice(0, 160))]  # one block, the whole scene
+
+
+@pytest.mark.parametrize("upsample", [1, 20, 100])
+def test_upsampled_peak_matches_scikit_image(upsample):
+    from skimage.registration import phase_cross_correlation
+
+    from unmix.comparability import block_field, field_shift
+
+    scene = _scene(192, seed=8)
+    moved = ndimage.shift(scene, (2.37, -0.61), order=3, mode="nearest")
+    ref, mov = block_field(scene), block_field(moved)
+    res = field_shift(ref, mov, upsample=upsample)
+    # scikit-image's implementation of Guizar-Sicairos et al. (2008) on the same two spectra
+    shift, error, _ = phase_cross_correlation(ref.spectrum, mov.spectrum, upsample_factor=upsample,
+                                              space="fourier", normalization=None)
+    # (scikit-image keeps the single precision of the spectra: equal to float32 rounding)
+    assert (res.dy, res.dx) == pytest.approx((float(shift[0]), float(shift[1])), abs=1e-6)
+    if upsample > 1:
+        assert res.error == pytest.approx(float(error), abs=1e-4)

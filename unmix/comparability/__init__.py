@@ -17,7 +17,7 @@ Canty, M. J. and Nielsen, A. A. (2008). doi:10.1016/j.rse.2007.07.013
 
 from __future__ import annotations
 
-from .orientation import SIGMA, noise_sd, orientation_field
+from .orientation import SIGMA, inside_mask, noise_sd, orientation_field
 from .phenology import (
     DAYS_PER_YEAR,
     DateWindow,
@@ -52,6 +52,7 @@ from .registration import (
     MIN_BLOCK,
     MIN_PEAK_RATIO,
     WARN_SHIFT,
+    BlockField,
     BlockShift,
     ShiftEstimate,
     block_field,
@@ -60,15 +61,15 @@ from .registration import (
     block_windows,
     combine_block_shifts,
     field_shift,
-    shift_image,
 )
+from .shift import shift_image
 
 __all__ = [
     "GAIN_TOLERANCE", "MIN_R2", "MadResult", "RadiometricFit", "fit_date", "fit_flag", "invariant_pixels",
     "irmad", "normalise", "orthogonal_regression",
-    "MAX_PEAK_SD", "MAX_SHIFT", "MAX_SPREAD", "MIN_BLOCK", "MIN_PEAK_RATIO", "WARN_SHIFT", "BlockShift", "ShiftEstimate",
+    "MAX_PEAK_SD", "MAX_SHIFT", "MAX_SPREAD", "MIN_BLOCK", "MIN_PEAK_RATIO", "WARN_SHIFT", "BlockField", "BlockShift", "ShiftEstimate",
     "block_field", "block_shift", "block_shifts", "block_windows", "combine_block_shifts", "field_shift",
-    "SIGMA", "noise_sd", "orientation_field", "shift_image",
+    "SIGMA", "inside_mask", "noise_sd", "orientation_field", "shift_image",
 
     "DAYS_PER_YEAR",
     "DateWindow",

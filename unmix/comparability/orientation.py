@@ -15,7 +15,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import ndimage
 
-__all__ = ["SIGMA", "noise_sd", "orientation_field"]
+__all__ = ["SIGMA", "inside_mask", "noise_sd", "orientation_field"]
 
 #: Scale of the Gaussian-derivative gradients [pixel]: smooths sensor noise, keeps edges one pixel apart.
 SIGMA = 1.0
@@ -40,11 +40,11 @@ def noise_sd(image: np.ndarray, valid: np.ndarray) -> float:
     >>> round(noise_sd(img, np.ones(img.shape, bool)), 3)
     0.01
     """
-    second = np.array([1.0, -2.0, 1.0])  # N is the outer product of two second differences
-    resp = np.abs(ndimage.correlate1d(ndimage.correlate1d(image, second, axis=0, mode="nearest"), second,
-                                      axis=1, mode="nearest"))
-    inner = ndimage.binary_erosion(valid, iterations=1, border_value=0)
-    return float(np.sqrt(np.pi / 2) * resp[inner].mean() / 6.0) if inner.any() else 0.0
+    # N is the outer product of two second differences: taken by slicing, on the interior pixels
+    rows = image[:-2] - 2 * image[1:-1] + image[2:]
+    resp = np.abs(rows[:, :-2] - 2 * rows[:, 1:-1] + rows[:, 2:])
+    inner = ndimage.binary_erosion(valid, structure=np.ones((3, 3), bool), iterations=1, border_value=0)[1:-1, 1:-1]
+    return float(np.sqrt(np.pi / 2) * resp[inner].mean(dtype=np.float64) / 6.0) if inner.any() else 0.0
 
 
 def orientation_field(image: np.ndarray, valid: np.ndarray, *, sigma: float = SIGMA) -> np.ndarray:
@@ -56,8 +56,8 @@ def orientation_field(image: np.ndarray, valid: np.ndarray, *, sigma: float = SI
     so an edge whose contrast inverted between the dates (a field cleared, wet and dry seasons, bands
     whose contrasts run opposite) still matches. Gradients rather than levels make the correlation blind
     to the broad changes of level that real cover change and seasons bring (Argyriou and Vlachos 2003).
-    Pixels within ``3 sigma`` of no data (or of the block's edge) are zero, so filled gaps make no edges
-    and each date can be transformed once, with its own gaps.
+    Pixels outside :func:`inside_mask` (near no data or the block's edge) are zero, so filled gaps make
+    no edges and each date can be transformed once, with its own gaps. Computed in single precision.
 
     Parameters
     ----------
@@ -68,7 +68,7 @@ def orientation_field(image: np.ndarray, valid: np.ndarray, *, sigma: float = SI
 
     Returns
     -------
-    (rows, cols) complex ndarray
+    (rows, cols) complex64 ndarray
 
     References
     ----------
@@ -83,24 +83,41 @@ def orientation_field(image: np.ndarray, valid: np.ndarray, *, sigma: float = SI
     >>> step += np.random.default_rng(0).normal(0, 0.01, step.shape)  # and sensor noise
     >>> valid = np.ones(step.shape, bool)
     >>> a, b = orientation_field(step, valid), orientation_field(1 - step, valid)  # and its inversion
-    >>> bool(np.allclose(a, b)), bool(a[8, 7].real > 0)
+    >>> bool(np.allclose(a, b, rtol=1e-3, atol=1e-3)), bool(a[8, 7].real > 0)  # single precision
     (True, True)
     """
-    image = np.asarray(image, dtype=np.float64)
+    image = np.asarray(image)
     planes = image[None] if image.ndim == 2 else image
-    # the filters reach 3 sigma (truncated there); a pixel whose square footprint touches a filled gap or
-    # the block's edge is zero, so the fill makes no edges of its own
-    reach = int(3.0 * sigma + 0.5)
-    inside = ndimage.binary_erosion(valid, structure=np.ones((3, 3), bool), iterations=reach, border_value=0)
-    out = np.zeros(planes.shape[1:], dtype=np.complex128)
+    inside = inside_mask(valid, sigma)
+    out = np.zeros(planes.shape[1:], dtype=np.complex64)
     for plane in planes:
-        filled = np.where(valid, plane, plane[valid].mean())
+        filled = np.where(valid, plane, plane[valid].mean()).astype(np.float32)
         noise = noise_sd(filled, valid)
         if noise <= 0:
             continue
-        g = (ndimage.gaussian_filter(filled, sigma, order=(0, 1), truncate=3.0)
-             + 1j * ndimage.gaussian_filter(filled, sigma, order=(1, 0), truncate=3.0)) / noise
+        # smoothed once, then central differences: the Gaussian-derivative gradient up to the difference
+        # operator, at a third of the filtering cost (the filters stop at 3 sigma)
+        smooth = ndimage.gaussian_filter(filled, sigma, truncate=3.0, mode="nearest")
+        g = np.zeros(filled.shape, dtype=np.complex64)
+        g.real[:, 1:-1] = smooth[:, 2:] - smooth[:, :-2]
+        g.imag[1:-1, :] = smooth[2:, :] - smooth[:-2, :]
+        g *= np.float32(0.5 / noise)
         mag = np.abs(g)
-        out += np.where(mag > 0, g * g / np.where(mag > 0, mag, 1.0), 0.0)
+        np.divide(g * g, mag, out=g, where=mag > 0)
+        out += g
     out[~inside] = 0.0
     return out
+
+
+def inside_mask(valid: np.ndarray, sigma: float = SIGMA) -> np.ndarray:
+    """Valid pixels whose footprint in :func:`orientation_field` (3 sigma, plus the difference) holds no
+    gap and stays inside the block: the square erosion of ``valid`` by ``round(3 sigma) + 1`` pixels.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> int(inside_mask(np.ones((12, 12), bool), 1.0).sum())  # 12 - 2 x 4 pixels a side
+    16
+    """
+    reach = int(3.0 * sigma + 0.5) + 1
+    return ndimage.binary_erosion(valid, structure=np.ones((3, 3), bool), iterations=reach, border_value=0)

@@ -120,18 +120,18 @@ def _band_index(cube: xr.DataArray, band) -> int:
     return _band_indices(cube, band)[0]
 
 
-def _date_task(ref_blocks, blocks, *, bands, picks, settings):
+def _fields(blocks, bands, sigma):
+    return [block_field(b[bands], sigma=sigma) for b in blocks]
+
+
+def _date_task(ref_fields, blocks, *, bands, picks, settings):
     """One date against the reference: its shift over the blocks (``bands`` only), the valid share of the
     blocks and its sampled pixels (band, pixel) from the same read (``picks``: pixel indices per block)."""
     found = None
-    sigma = settings["block"]["sigma"]
-    if ref_blocks is not None:
-        shifts = []
-        for r, m in zip(ref_blocks, blocks):
-            both = np.isfinite(r[bands]).all(axis=0) & np.isfinite(m[bands]).all(axis=0)
-            shifts.append(field_shift(block_field(r[bands], valid=both, sigma=sigma),
-                                      block_field(m[bands], valid=both, sigma=sigma), **settings["block"]))
-        found = combine_block_shifts(shifts, **settings["combine"])
+    if ref_fields is not None:
+        mine = _fields(blocks, bands, settings["block"]["sigma"])
+        found = combine_block_shifts([field_shift(r, m, **settings["block"]) for r, m in zip(ref_fields, mine)],
+                                     **settings["combine"])
     valid = sum(int(np.isfinite(b[bands]).all(axis=0).sum()) for b in blocks) / max(1, sum(b[0].size for b in blocks))
     sample = None
     if picks is not None:
@@ -141,11 +141,12 @@ def _date_task(ref_blocks, blocks, *, bands, picks, settings):
 
 def _measure_dates(cube, windows, i_ref, *, bands, picks, settings):
     """The per-date tasks over the blocks, computed together: each date's blocks are read by its own task,
-    the reference's once, so memory holds the reference's blocks and the dates in flight."""
+    the reference's once (its fields transformed once for all dates), so memory holds the reference's
+    fields and the dates in flight."""
     data = cube.transpose("time", "band", "y", "x").data
     take = [(slice(None), wy, wx) for wy, wx in windows]
-    ref_blocks = [data[(i_ref, *w)] for w in take]
-    tasks = [dask.delayed(_date_task)(None if t == i_ref else ref_blocks, [data[(t, *w)] for w in take],
+    ref_fields = dask.delayed(_fields)([data[(i_ref, *w)] for w in take], bands, settings["block"]["sigma"])
+    tasks = [dask.delayed(_date_task)(None if t == i_ref else ref_fields, [data[(t, *w)] for w in take],
                                       bands=bands, picks=picks, settings=settings)
              for t in range(cube.sizes["time"])]
     return dask.compute(*tasks)
