@@ -239,11 +239,9 @@ def _refine(product: np.ndarray, peak: tuple[int, int], upsample: int) -> tuple[
     region = int(np.ceil(upsample * 1.5))
     centre = np.fix(region / 2.0)
     offset = centre - shift * upsample
-    data = product.conj()
-    for n, off in zip(product.shape[::-1], offset[::-1]):  # one axis at a time, last first
-        kernel = np.exp(-2j * np.pi * (np.arange(region) - off)[:, None] * fft.fftfreq(n, upsample))
-        data = np.tensordot(kernel.astype(data.dtype), data, axes=(1, -1))
-    cc = data.conj()
+    ky, kx = (np.exp(-2j * np.pi * (np.arange(region) - off)[:, None] * fft.fftfreq(n, upsample)).astype(
+        product.dtype) for n, off in zip(product.shape, offset))
+    cc = (ky @ product.conj() @ kx.T).conj()  # both axes by plain matrix products
     top = np.unravel_index(int(np.argmax(np.abs(cc))), cc.shape)
     shift = shift + (np.array(top, dtype=np.float64) - centre) / upsample
     return float(shift[0]), float(shift[1]), float(np.abs(cc[top])) / product.size
