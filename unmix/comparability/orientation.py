@@ -15,7 +15,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import ndimage
 
-__all__ = ["SIGMA", "inside_mask", "noise_sd", "orientation_field"]
+__all__ = ["SIGMA", "band_noise", "inside_mask", "noise_sd", "orientation_field"]
 
 #: Scale of the Gaussian-derivative gradients [pixel]: smooths sensor noise, keeps edges one pixel apart.
 SIGMA = 1.0
@@ -48,7 +48,15 @@ def noise_sd(image: np.ndarray, valid: np.ndarray) -> float:
     return float(np.sqrt(np.pi / 2) * resp[inner].mean(dtype=np.float64) / 6.0) if inner.any() else 0.0
 
 
-def orientation_field(image: np.ndarray, valid: np.ndarray, *, sigma: float = SIGMA) -> np.ndarray:
+def band_noise(image: np.ndarray, valid: np.ndarray) -> np.ndarray:
+    """:func:`noise_sd` of each band of a (bands, rows, cols) block (gaps filled with the band's mean)."""
+    planes = np.asarray(image)
+    planes = planes[None] if planes.ndim == 2 else planes
+    return np.array([noise_sd(np.where(valid, p, p[valid].mean()).astype(np.float32), valid) for p in planes])
+
+
+def orientation_field(image: np.ndarray, valid: np.ndarray, *, sigma: float = SIGMA,
+                      noise: np.ndarray | None = None) -> np.ndarray:
     """Sign-free gradient field of one date summed over its bands, zero where it is not defined.
 
     Per band: Gaussian-derivative gradient ``g = gx + i gy`` (scale ``sigma`` [pixel]), divided by the band's
@@ -66,6 +74,9 @@ def orientation_field(image: np.ndarray, valid: np.ndarray, *, sigma: float = SI
     valid : (rows, cols) bool ndarray
         Valid pixels of the date (every band finite); the others are filled before filtering.
     sigma : float
+    noise : (bands,) ndarray, optional
+        Noise standard deviation of each band (default: :func:`band_noise` of this block). Pass the
+        reference's to every date, so both fields of a pair weigh the bands alike.
 
     Returns
     -------
@@ -91,18 +102,18 @@ def orientation_field(image: np.ndarray, valid: np.ndarray, *, sigma: float = SI
     planes = image[None] if image.ndim == 2 else image
     inside = inside_mask(valid, sigma)
     out = np.zeros(planes.shape[1:], dtype=np.complex64)
-    for plane in planes:
-        filled = np.where(valid, plane, plane[valid].mean()).astype(np.float32)
-        noise = noise_sd(filled, valid)
-        if noise <= 0:
+    noise = band_noise(planes, valid) if noise is None else np.asarray(noise, dtype=np.float64)
+    for plane, scale in zip(planes, noise):
+        if not scale > 0:
             continue
+        filled = np.where(valid, plane, plane[valid].mean()).astype(np.float32)
         # smoothed once, then central differences: the Gaussian-derivative gradient up to the difference
         # operator, at a third of the filtering cost (the filters stop at 3 sigma)
         smooth = ndimage.gaussian_filter(filled, sigma, truncate=3.0, mode="nearest")
         g = np.zeros(filled.shape, dtype=np.complex64)
         g.real[:, 1:-1] = smooth[:, 2:] - smooth[:, :-2]
         g.imag[1:-1, :] = smooth[2:, :] - smooth[:-2, :]
-        g *= np.float32(0.5 / noise)
+        g *= np.float32(0.5 / scale)
         mag = np.abs(g)
         np.divide(g * g, mag, out=g, where=mag > 0)
         out += g

@@ -20,6 +20,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy import linalg, special
+from threadpoolctl import threadpool_limits
 
 __all__ = ["MadResult", "RadiometricFit", "irmad", "invariant_pixels", "orthogonal_regression", "normalise",
            "fit_flag", "fit_date", "MIN_R2", "GAIN_TOLERANCE"]
@@ -65,9 +66,7 @@ def _weighted_cov(z: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np.ndarray]
     sw = w.sum()
     mean = (w[:, None] * z).sum(axis=0) / sw
     d = z - mean
-    # einsum's own loops, not a threaded BLAS call: tall-and-thin products on a busy machine run several
-    # times faster without BLAS threads
-    return mean, np.einsum("ni,nj->ij", d * w[:, None], d) / sw
+    return mean, ((d * w[:, None]).T @ d) / sw
 
 
 #: Convergence of IR-MAD: the largest change of a canonical correlation between two iterations. On
@@ -122,6 +121,14 @@ def irmad(x: np.ndarray, y: np.ndarray, *, max_iter: int = 50, tol: float = IRMA
     n, p = x.shape
     if n <= 2 * p:
         raise ValueError(f"IR-MAD needs more pixels than 2 x bands ({2 * p}), got {n}")
+    with threadpool_limits(limits=1, user_api="blas"):
+        return _irmad(x, y, max_iter, tol)
+
+
+def _irmad(x: np.ndarray, y: np.ndarray, max_iter: int, tol: float) -> MadResult:
+    # tall-and-thin products on one BLAS thread: on a busy machine, BLAS threads waiting for a core made
+    # them several times slower than a single thread
+    n, p = x.shape
     z = np.concatenate([x, y], axis=1)
     w = np.ones(n)
     rho_old = np.full(p, np.inf)
@@ -134,7 +141,7 @@ def irmad(x: np.ndarray, y: np.ndarray, *, max_iter: int = 50, tol: float = IRMA
         rho2, a = linalg.eigh(s12 @ s22_inv_s21, s11)
         rho = np.sqrt(np.clip(rho2, 0.0, 1.0))
         b = s22_inv_s21 @ a / np.where(rho > 0, rho, 1.0)  # unit variance of v = b'y, corr(u, v) = rho
-        mad = np.einsum("ni,ij->nj", x - mean[:p], a) - np.einsum("ni,ij->nj", y - mean[p:], b)
+        mad = (x - mean[:p]) @ a - (y - mean[p:]) @ b
         sigma2 = np.maximum(2.0 * (1.0 - rho), 1e-12)  # variance of a MAD variate
         chi2 = (mad ** 2 / sigma2).sum(axis=1)
         w = special.chdtrc(p, chi2)  # chi-square survival function: P(chi2_p > chi2)

@@ -31,7 +31,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import fft
 
-from .orientation import SIGMA, inside_mask, orientation_field
+from .orientation import SIGMA, band_noise, inside_mask, orientation_field
 
 __all__ = ["BlockShift", "ShiftEstimate", "block_shift", "block_shifts", "block_windows", "combine_block_shifts",
            "BlockField", "block_field", "field_shift", "WARN_SHIFT", "MAX_SHIFT", "MAX_PEAK_SD", "MAX_SPREAD",
@@ -179,7 +179,8 @@ def block_shift(reference: np.ndarray, moving: np.ndarray, *, upsample: int = 10
     if reference.shape != moving.shape:
         raise ValueError(f"reference and moving must be blocks of one shape, got {reference.shape} and "
                          f"{moving.shape}")
-    return field_shift(block_field(reference, sigma=sigma), block_field(moving, sigma=sigma), upsample=upsample,
+    ref = block_field(reference, sigma=sigma)
+    return field_shift(ref, block_field(moving, sigma=sigma, noise=ref.noise), upsample=upsample,
                        min_valid=min_valid, sigma=sigma, min_peak_ratio=min_peak_ratio, max_peak_sd=max_peak_sd)
 
 
@@ -193,9 +194,10 @@ class BlockField:
     inside: np.ndarray
     field: np.ndarray | None
     spectrum: np.ndarray | None
+    noise: np.ndarray | None = None
 
 
-def block_field(block: np.ndarray, *, sigma: float = SIGMA) -> BlockField:
+def block_field(block: np.ndarray, *, sigma: float = SIGMA, noise: np.ndarray | None = None) -> BlockField:
     """What one date's block brings to the correlation, computed once per date and block.
 
     The :func:`orientation_field` of the block with its own gaps, Hann-tapered (against the wrap-around
@@ -204,7 +206,8 @@ def block_field(block: np.ndarray, *, sigma: float = SIGMA) -> BlockField:
     the pixels valid on both dates, as if both were computed with their common mask, so gaps of one date
     leave no unmatched structure of the other (on the invented demo scene, own masks alone let registered
     dates drift to 0.2 px, the common mask kept them within 0.05 px). A reference is thus transformed
-    once for all dates, and again only for pairs where the other date has gaps.
+    once for all dates, and again only for pairs where the other date has gaps. ``noise``: the band
+    scales (pass the reference's ``noise`` for the other dates; default: the block's own).
     """
     block = np.asarray(block)
     if block.ndim not in (2, 3):
@@ -215,8 +218,9 @@ def block_field(block: np.ndarray, *, sigma: float = SIGMA) -> BlockField:
     if not inside.any() or all(np.ptp(p[valid]) == 0 for p in planes):
         return BlockField(valid, inside, None, None)
     taper = np.outer(np.hanning(valid.shape[0]), np.hanning(valid.shape[1])).astype(np.float32)
-    field = orientation_field(planes, valid, sigma=sigma) * taper
-    return BlockField(valid, inside, field, fft.fft2(field))
+    noise = band_noise(planes, valid) if noise is None else noise
+    field = orientation_field(planes, valid, sigma=sigma, noise=noise) * taper
+    return BlockField(valid, inside, field, fft.fft2(field), noise)
 
 
 def _paired(one: BlockField, other: BlockField) -> np.ndarray:

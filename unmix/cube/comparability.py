@@ -120,8 +120,11 @@ def _band_index(cube: xr.DataArray, band) -> int:
     return _band_indices(cube, band)[0]
 
 
-def _fields(blocks, bands, sigma):
-    return [block_field(b[bands], sigma=sigma) for b in blocks]
+def _fields(blocks, bands, sigma, like=None):
+    """Fields of the blocks; with ``like`` (the reference's fields) each band weighed by the reference's
+    noise scale, so both fields of a pair weigh the bands alike (and noise is estimated once)."""
+    like = like or [None] * len(blocks)
+    return [block_field(b[bands], sigma=sigma, noise=None if r is None else r.noise) for b, r in zip(blocks, like)]
 
 
 def _date_task(ref_fields, blocks, *, bands, picks, settings):
@@ -129,7 +132,7 @@ def _date_task(ref_fields, blocks, *, bands, picks, settings):
     blocks and its sampled pixels (band, pixel) from the same read (``picks``: pixel indices per block)."""
     found = None
     if ref_fields is not None:
-        mine = _fields(blocks, bands, settings["block"]["sigma"])
+        mine = _fields(blocks, bands, settings["block"]["sigma"], like=ref_fields)
         found = combine_block_shifts([field_shift(r, m, **settings["block"]) for r, m in zip(ref_fields, mine)],
                                      **settings["combine"])
     valid = sum(int(np.isfinite(b[bands]).all(axis=0).sum()) for b in blocks) / max(1, sum(b[0].size for b in blocks))
@@ -149,7 +152,16 @@ def _measure_dates(cube, windows, i_ref, *, bands, picks, settings):
     tasks = [dask.delayed(_date_task)(None if t == i_ref else ref_fields, [data[(t, *w)] for w in take],
                                       bands=bands, picks=picks, settings=settings)
              for t in range(cube.sizes["time"])]
-    return dask.compute(*tasks)
+    with _one_blas_thread():
+        return dask.compute(*tasks)
+
+
+def _one_blas_thread():
+    """BLAS on one thread while measuring: the dates already run in parallel, and the small matrix products
+    of the peak refinement waited tens of milliseconds for a BLAS thread on a loaded machine (0.5 ms alone)."""
+    from threadpoolctl import threadpool_limits
+
+    return threadpool_limits(limits=1, user_api="blas")
 
 
 def _registration_settings(upsample, min_valid, min_blocks, sigma, min_peak_ratio, max_peak_sd, max_spread) -> dict:
@@ -303,7 +315,8 @@ def _radiometry(cube, values, i_ref, ref, *, seed, threshold, min_pixels, min_r2
     others = [t for t in range(n_t) if t != i_ref]
     fit_one = functools.partial(fit_date, threshold=threshold, min_pixels=min_pixels, min_r2=min_r2,
                                 gain_tolerance=gain_tolerance, band_names=names)
-    fitted = dask.compute(*[dask.delayed(fit_one)(values[t], values[i_ref]) for t in others])
+    with _one_blas_thread():
+        fitted = dask.compute(*[dask.delayed(fit_one)(values[t], values[i_ref]) for t in others])
     for t, fit in zip(others, fitted):
         for k in fields:
             fields[k][t] = getattr(fit, k)
