@@ -64,9 +64,11 @@ class RadiometricFit:
 
 def _weighted_cov(z: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     sw = w.sum()
-    mean = (w[:, None] * z).sum(axis=0) / sw
-    d = z - mean
-    return mean, ((d * w[:, None]).T @ d) / sw
+    zw = z * (w / sw)[:, None]
+    mean = zw.sum(axis=0)
+    # E_w[z z'] - mean mean': one product, no centred copy (z is reflectance of order 1, so the
+    # difference loses nothing that matters in double precision)
+    return mean, zw.T @ z - np.outer(mean, mean)
 
 
 #: Convergence of IR-MAD: the largest change of a canonical correlation between two iterations. On
@@ -141,9 +143,10 @@ def _irmad(x: np.ndarray, y: np.ndarray, max_iter: int, tol: float) -> MadResult
         rho2, a = linalg.eigh(s12 @ s22_inv_s21, s11)
         rho = np.sqrt(np.clip(rho2, 0.0, 1.0))
         b = s22_inv_s21 @ a / np.where(rho > 0, rho, 1.0)  # unit variance of v = b'y, corr(u, v) = rho
-        mad = (x - mean[:p]) @ a - (y - mean[p:]) @ b
+        ab = np.concatenate([a, -b])  # mad = a'(x - mean_x) - b'(y - mean_y) in one product
+        mad = z @ ab - mean @ ab
         sigma2 = np.maximum(2.0 * (1.0 - rho), 1e-12)  # variance of a MAD variate
-        chi2 = (mad ** 2 / sigma2).sum(axis=1)
+        chi2 = (mad * mad) @ (1.0 / sigma2)
         w = special.chdtrc(p, chi2)  # chi-square survival function: P(chi2_p > chi2)
         if np.max(np.abs(rho - rho_old)) < tol:
             converged = True
