@@ -1,12 +1,14 @@
 """Comparability of the dates of a lazy cube: co-registration and relative radiometric normalisation.
 
 Maps the kernels of :mod:`unmix.comparability` over a (time, band, y, x) cube. Measuring reads only
-what it needs: a few blocks of one band for the shifts, a fixed sample of pixels for the radiometry.
-Corrections stay lazy. No paths, no printing.
+what it needs: a few blocks (of the registration bands, or of every band when the radiometric sample is
+drawn from them too), one task per date, and a fixed sample of pixels for the radiometry. Corrections
+stay lazy. No paths, no printing.
 
 References
 ----------
 Guizar-Sicairos, M., Thurman, S. T. and Fienup, J. R. (2008). doi:10.1364/OL.33.000156
+Argyriou, V. and Vlachos, T. (2003). doi:10.1049/el:20030666
 Canty, M. J. and Nielsen, A. A. (2008). doi:10.1016/j.rse.2007.07.013
 """
 
@@ -44,6 +46,11 @@ from unmix.errors import UnknownNameError
 #: benchmarks/bench_comparability.py): 20 000 keep about 100 invariant pixels, 10 000 only about 50, the
 #: least a fit accepts (``min_pixels``).
 SAMPLE = 20000
+#: Registration blocks by default: 4 of 256 px (a 2 x 2 layout). Each block costs the decoding of the
+#: tile it lies in on every date, plus its gradient fields; 4 blocks keep measuring within 15 % of
+#: unmixing (benchmarks/bench_comparability.py), still give a median and a spread, and the 3 needed
+#: (``min_blocks``) leave one block to a cloud or to featureless ground.
+N_BLOCKS = 4
 
 __all__ = ["reference_date", "block_layout", "measure_registration", "measure_radiometry", "measure_comparability",
            "registration_verdict", "correct_registration", "normalise_cube"]
@@ -92,7 +99,7 @@ def _snap(starts: list[int], size: int, chunks: tuple[int, ...]) -> list[int]:
     return out
 
 
-def block_layout(cube: xr.DataArray, n_blocks: int = 9, block: int = 256) -> list[tuple[slice, slice]]:
+def block_layout(cube: xr.DataArray, n_blocks: int = N_BLOCKS, block: int = 256) -> list[tuple[slice, slice]]:
     """Windows of :func:`unmix.comparability.block_windows`, each moved inside one chunk of a dask cube."""
     wins = block_windows((cube.sizes["y"], cube.sizes["x"]), n_blocks, block)
     if not isinstance(cube.data, da.Array):
@@ -203,7 +210,7 @@ def _shift_dataset(times, results, i_ref, *, band_names, block, n_windows, setti
                "max_spread": settings["combine"]["max_spread"]})
 
 
-def measure_registration(cube: xr.DataArray, *, band, reference, n_blocks: int = 9, block: int = 256,
+def measure_registration(cube: xr.DataArray, *, band, reference, n_blocks: int = N_BLOCKS, block: int = 256,
                          upsample: int = 20, min_valid: float = 0.5, min_blocks: int = 3, sigma: float = SIGMA,
                          min_peak_ratio: float = MIN_PEAK_RATIO, max_peak_sd: float = MAX_PEAK_SD,
                          max_spread: float = MAX_SPREAD) -> xr.Dataset:
@@ -361,7 +368,7 @@ def measure_radiometry(cube: xr.DataArray, *, reference, sample: int = SAMPLE, s
                        min_r2=min_r2, gain_tolerance=gain_tolerance)
 
 
-def measure_comparability(cube: xr.DataArray, *, band, reference, n_blocks: int = 9, block: int = 256,
+def measure_comparability(cube: xr.DataArray, *, band, reference, n_blocks: int = N_BLOCKS, block: int = 256,
                           upsample: int = 20, min_valid: float = 0.5, min_blocks: int = 3, sample: int = SAMPLE,
                           seed: int = 0, threshold: float = 0.95, min_pixels: int = 50, min_r2: float = MIN_R2,
                           gain_tolerance: float = GAIN_TOLERANCE, sigma: float = SIGMA,
