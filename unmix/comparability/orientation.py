@@ -101,7 +101,9 @@ def orientation_field(image: np.ndarray, valid: np.ndarray, *, sigma: float = SI
     image = np.asarray(image)
     planes = image[None] if image.ndim == 2 else image
     inside = inside_mask(valid, sigma)
-    out = np.zeros(planes.shape[1:], dtype=np.complex64)
+    rows, cols = planes.shape[1:]
+    re = np.zeros((rows - 2, cols - 2), dtype=np.float32)  # the double-angle field, interior pixels
+    im = np.zeros((rows - 2, cols - 2), dtype=np.float32)
     noise = band_noise(planes, valid) if noise is None else np.asarray(noise, dtype=np.float64)
     for plane, scale in zip(planes, noise):
         if not scale > 0:
@@ -110,13 +112,17 @@ def orientation_field(image: np.ndarray, valid: np.ndarray, *, sigma: float = SI
         # smoothed once, then central differences: the Gaussian-derivative gradient up to the difference
         # operator, at a third of the filtering cost (the filters stop at 3 sigma)
         smooth = ndimage.gaussian_filter(filled, sigma, truncate=3.0, mode="nearest")
-        g = np.zeros(filled.shape, dtype=np.complex64)
-        g.real[:, 1:-1] = smooth[:, 2:] - smooth[:, :-2]
-        g.imag[1:-1, :] = smooth[2:, :] - smooth[:-2, :]
-        g *= np.float32(0.5 / scale)
-        mag = np.abs(g)
-        np.divide(g * g, mag, out=g, where=mag > 0)
-        out += g
+        k = np.float32(0.5 / scale)
+        gx = (smooth[1:-1, 2:] - smooth[1:-1, :-2]) * k
+        gy = (smooth[2:, 1:-1] - smooth[:-2, 1:-1]) * k
+        # g^2 / |g| in real arithmetic: (gx^2 - gy^2, 2 gx gy) / |g|
+        mag = np.hypot(gx, gy)
+        np.divide(1.0, mag, out=mag, where=mag > 0)
+        re += (gx * gx - gy * gy) * mag
+        im += 2 * gx * gy * mag
+    out = np.zeros((rows, cols), dtype=np.complex64)
+    out.real[1:-1, 1:-1] = re
+    out.imag[1:-1, 1:-1] = im
     out[~inside] = 0.0
     return out
 
