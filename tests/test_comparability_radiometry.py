@@ -110,3 +110,16 @@ def test_linearly_dependent_bands_are_flagged_not_raised():
     y = rng.dirichlet(np.ones(3), 500) @ M
     fit = fit_date(x, y)
     assert np.isnan(fit.gain).all() and "linearly dependent" in fit.flag
+
+
+def test_iterating_on_a_subset_then_scoring_all_keeps_the_invariant_pixels():
+    date, ref, moved = _pair(n=20000, p=6, seed=4)
+    full = irmad(date, ref)
+    part = irmad(date, ref, fit_pixels=5000)
+    # the canonical correlations of a 12-variable covariance from 5 000 pixels agree to about 2 %
+    # (relative standard error near sqrt(2 / n); Anderson 2003, from memory)
+    np.testing.assert_allclose(np.sort(part.rho), np.sort(full.rho), atol=0.02)
+    keep_full, keep_part = full.no_change > 0.95, part.no_change > 0.95
+    assert part.no_change.shape == (20000,)  # every pixel scored
+    assert (keep_full & keep_part).sum() > 0.8 * keep_full.sum()
+    assert keep_part[moved].sum() < 0.05 * keep_part.sum()  # changed pixels still left out (Nielsen 2007)

@@ -108,3 +108,70 @@ def test_kernel_package_imports_no_upper_layer():
             "print(sorted(m for m in ('xarray', 'dask', 'rasterio', 'click', 'matplotlib') if m in sys.modules))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "[]"  # the layering rule of DEVELOPERS.md
+
+
+def test_block_of_noise_alone_is_not_measured():
+    rng = np.random.default_rng(4)
+    a, b = rng.normal(size=(128, 128)), rng.normal(size=(128, 128))  # two unrelated noise fields
+    res = block_shift(a, b)
+    # no common structure: the correlation peak does not stand out (peak-to-next ratio near 1; Bolme et
+    # al. 2010's peak-to-sidelobe reasoning), so no shift is stated
+    assert np.isnan(res.dy) and "weak correlation peak" in res.reason
+    assert res.peak_ratio < 1.3
+
+
+def test_contrast_inversion_still_matches():
+    scene = _scene(256, seed=5)
+    # a field cleared, or a band where the cover's contrast runs the other way: levels inverted, edges kept
+    # (the double-angle form of the gradient ignores the sign; Granlund 1978)
+    moved = 1.0 - ndimage.shift(scene, (0.6, -0.4), order=3, mode="nearest")
+    est = block_shifts(scene, moved, block_windows(scene.shape, 4, 128), upsample=50)
+    assert est.reason == ""
+    assert abs(est.dy + 0.6) < 0.05 and abs(est.dx - 0.4) < 0.05  # generated shift (scipy.ndimage.shift)
+
+
+def test_bands_are_summed_and_a_flat_band_does_not_hurt():
+    rng = np.random.default_rng(6)
+    scene = np.stack([_scene(128, seed=7), 0.3 + rng.normal(0, 1e-3, (128, 128))])  # one textured, one flat
+    moved = np.stack([ndimage.shift(scene[0], (-0.8, 0.3), order=3, mode="nearest"),
+                      0.3 + rng.normal(0, 1e-3, (128, 128))])
+    res = block_shift(scene, moved, upsample=50)
+    # each band enters in its own noise units (Immerkaer 1996): the flat band adds noise, not bias
+    assert res.reason == ""
+    assert abs(res.dy - 0.8) < 0.05 and abs(res.dx + 0.3) < 0.05  # generated shift (scipy.ndimage.shift)
+
+
+def test_blocks_that_disagree_give_a_reason():
+    from unmix.comparability import BlockShift
+    found = [BlockShift(0.0, 0.0, 0.0), BlockShift(1.0, 0.0, 0.0), BlockShift(-1.0, 0.5, 0.0)]
+    est = combine_block_shifts(found)
+    # median absolute deviation of (0, 1, -1) is 1, x 1.4826 = 1.48 px: far above the 0.2 px warning level
+    assert np.isnan(est.dy) and "disagree" in est.reason
+    assert est.sd == pytest.approx(1.4826)
+
+
+def test_small_scene_gets_fewer_larger_blocks():
+    wins = block_windows((160, 160), 9, 48)
+    # blocks are raised to 64 px (MIN_BLOCK) and only 2 x 2 fit, rather than nine blocks of 48 px
+    assert len(wins) == 4
+    assert all(wy.stop - wy.start == 64 and wx.stop - wx.start == 64 for wy, wx in wins)
+    assert block_windows((160, 160), 9, 256) == [(slice(0, 160), slice(0, 160))]  # one block, the whole scene
+
+
+@pytest.mark.parametrize("upsample", [1, 20, 100])
+def test_upsampled_peak_matches_scikit_image(upsample):
+    from skimage.registration import phase_cross_correlation
+
+    from unmix.comparability import block_field, field_shift
+
+    scene = _scene(192, seed=8)
+    moved = ndimage.shift(scene, (2.37, -0.61), order=3, mode="nearest")
+    ref, mov = block_field(scene), block_field(moved)
+    res = field_shift(ref, mov, upsample=upsample)
+    # scikit-image's implementation of Guizar-Sicairos et al. (2008) on the same two spectra
+    shift, error, _ = phase_cross_correlation(ref.spectrum, mov.spectrum, upsample_factor=upsample,
+                                              space="fourier", normalization=None)
+    # (scikit-image keeps the single precision of the spectra: equal to float32 rounding)
+    assert (res.dy, res.dx) == pytest.approx((float(shift[0]), float(shift[1])), abs=1e-6)
+    if upsample > 1:
+        assert res.error == pytest.approx(float(error), abs=1e-4)

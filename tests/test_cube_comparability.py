@@ -53,7 +53,7 @@ def test_missing_band_names_the_available_ones():
 
 def test_measure_registration_recovers_known_shifts():
     cube = _cube()
-    res = measure_registration(cube, band="B4", reference="2021-01-01", block=96, upsample=50)
+    res = measure_registration(cube, band="B4", reference="2021-01-01", n_blocks=9, block=96, upsample=50)
     # aligning shift = minus the generated one (scipy.ndimage.shift); target 0.05 px (the issue's)
     np.testing.assert_allclose(res.shift_y, [-s[0] for s in SHIFTS], atol=0.05)
     np.testing.assert_allclose(res.shift_x, [-s[1] for s in SHIFTS], atol=0.05)
@@ -85,8 +85,8 @@ def test_registration_reads_only_the_blocks():
 
     spied = cube.copy(data=cube.data.map_blocks(spy, dtype=cube.dtype))
     with dask.config.set(scheduler="synchronous"):
-        measure_registration(spied, band="B5", reference="2021-01-01", block=48, upsample=10)
-    # 9 blocks of 48 px, each moved inside one chunk of 64 px: 9 chunks on each of 2 dates of the 200
+        measure_registration(spied, band="B5", reference="2021-01-01", n_blocks=9, block=48, upsample=10)
+    # 9 blocks of 48 px (raised to 64), each moved inside one chunk of 64 px: 9 chunks on each of 2 dates of the 200
     # (dask's own count of the cube's chunks)
     assert len(calls) == 9 * 2
     assert spied.data.npartitions == 200
@@ -147,10 +147,11 @@ def test_scene_sample_equals_numpy_indexing():
 
 
 def test_block_layout_keeps_each_block_inside_one_chunk():
-    cube = _cube(640, shifts=SHIFTS[:1], chunk=64)
+    cube = _cube(640, shifts=SHIFTS[:1], chunk=80)
     for wy, wx in block_layout(cube, 9, 48):
-        assert wy.start // 64 == (wy.stop - 1) // 64 and wx.start // 64 == (wx.stop - 1) // 64
-        assert wy.stop - wy.start == 48 and wx.stop - wx.start == 48
+        assert wy.start // 80 == (wy.stop - 1) // 80 and wx.start // 80 == (wx.stop - 1) // 80
+        # 48 px is raised to the smallest block, 64 px (MIN_BLOCK: small blocks gave false shifts)
+        assert wy.stop - wy.start == 64 and wx.stop - wx.start == 64
 
 
 def test_measure_comparability_matches_separate_measures():
@@ -167,8 +168,9 @@ def test_measure_comparability_matches_separate_measures():
 
 def test_measure_comparability_lazy_and_eager_cubes_agree():
     cube = _cube(192, shifts=SHIFTS[:3], chunk=64)
-    lazy = measure_comparability(cube, band="B3", reference=None, block=64, upsample=20, sample=3000)
-    eager = measure_comparability(cube.compute(), band="B3", reference=None, block=64, upsample=20, sample=3000)
+    lazy = measure_comparability(cube, band="B3", reference=None, n_blocks=9, block=64, upsample=20, sample=3000)
+    eager = measure_comparability(cube.compute(), band="B3", reference=None, n_blocks=9, block=64, upsample=20,
+                                  sample=3000)
     # the same blocks (the 3 x 3 layout of 64 px falls on the chunks of 64 px) and the same sampled pixels
     for a, b in zip(lazy, eager):
         xr.testing.assert_allclose(a, b)

@@ -1,7 +1,8 @@
 """Comparability of the dates of a stack: co-registration, radiometric normalisation, phenological windows.
 
 Kernels on plain numpy arrays (numpy, scipy, scikit-image only): :mod:`.registration` measures the
-sub-pixel shift of a date against a reference by phase correlation over blocks and resamples it;
+sub-pixel shift of a date against a reference by correlating sign-free gradient fields
+(:mod:`.orientation`) over blocks and resamples it;
 :mod:`.radiometry` picks pseudo-invariant pixels by IR-MAD and fits gain and offset per band by
 orthogonal regression; :mod:`.phenology` selects dates by day-of-year window, year and range and
 reduces each year to a composite. The cube layer (:mod:`unmix.cube.comparability`) maps them over a stack.
@@ -16,6 +17,7 @@ Canty, M. J. and Nielsen, A. A. (2008). doi:10.1016/j.rse.2007.07.013
 
 from __future__ import annotations
 
+from .orientation import SIGMA, band_noise, inside_mask, noise_sd, orientation_field
 from .phenology import (
     DAYS_PER_YEAR,
     DateWindow,
@@ -44,22 +46,30 @@ from .radiometry import (
     orthogonal_regression,
 )
 from .registration import (
+    MAX_PEAK_SD,
     MAX_SHIFT,
+    MAX_SPREAD,
+    MIN_BLOCK,
+    MIN_PEAK_RATIO,
     WARN_SHIFT,
+    BlockField,
     BlockShift,
     ShiftEstimate,
+    block_field,
     block_shift,
     block_shifts,
     block_windows,
     combine_block_shifts,
-    shift_image,
+    field_shift,
 )
+from .shift import shift_image
 
 __all__ = [
     "GAIN_TOLERANCE", "MIN_R2", "MadResult", "RadiometricFit", "fit_date", "fit_flag", "invariant_pixels",
     "irmad", "normalise", "orthogonal_regression",
-    "MAX_SHIFT", "WARN_SHIFT", "BlockShift", "ShiftEstimate", "block_shift", "block_shifts", "block_windows",
-    "combine_block_shifts", "shift_image",
+    "MAX_PEAK_SD", "MAX_SHIFT", "MAX_SPREAD", "MIN_BLOCK", "MIN_PEAK_RATIO", "WARN_SHIFT", "BlockField", "BlockShift", "ShiftEstimate",
+    "block_field", "block_shift", "block_shifts", "block_windows", "combine_block_shifts", "field_shift",
+    "SIGMA", "band_noise", "inside_mask", "noise_sd", "orientation_field", "shift_image",
 
     "DAYS_PER_YEAR",
     "DateWindow",

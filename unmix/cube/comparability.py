@@ -1,19 +1,20 @@
 """Comparability of the dates of a lazy cube: co-registration and relative radiometric normalisation.
 
 Maps the kernels of :mod:`unmix.comparability` over a (time, band, y, x) cube. Measuring reads only
-what it needs: a few blocks of one band for the shifts, a fixed sample of pixels for the radiometry.
-Corrections stay lazy. No paths, no printing.
+what it needs: a few blocks (of the registration bands, or of every band when the radiometric sample is
+drawn from them too), one task per date, and a fixed sample of pixels for the radiometry. Corrections
+stay lazy. No paths, no printing.
 
 References
 ----------
 Guizar-Sicairos, M., Thurman, S. T. and Fienup, J. R. (2008). doi:10.1364/OL.33.000156
+Argyriou, V. and Vlachos, T. (2003). doi:10.1049/el:20030666
 Canty, M. J. and Nielsen, A. A. (2008). doi:10.1016/j.rse.2007.07.013
 """
 
 from __future__ import annotations
 
 import functools
-import math
 
 import dask
 import dask.array as da
@@ -22,16 +23,33 @@ import xarray as xr
 
 from unmix.comparability import (
     GAIN_TOLERANCE,
+    MAX_PEAK_SD,
     MAX_SHIFT,
+    MAX_SPREAD,
+    MIN_PEAK_RATIO,
     MIN_R2,
+    SIGMA,
     WARN_SHIFT,
-    block_shift,
+    block_field,
     block_windows,
     combine_block_shifts,
+    field_shift,
     fit_date,
-    shift_image,
 )
+from unmix.cube.corrections import correct_registration, normalise_cube
 from unmix.errors import UnknownNameError
+
+#: Pixels sampled for the radiometric fit. The fit itself needs far fewer (IR-MAD's 12 x 12 covariance
+#: for six bands, whose entries n pixels give to a relative standard error near sqrt(2 / n); Anderson 2003,
+#: from memory), but only about 0.5 % of a related pair of dates pass the 0.95 no-change level (measured on
+#: benchmarks/bench_comparability.py): 20 000 keep about 100 invariant pixels, 10 000 only about 50, the
+#: least a fit accepts (``min_pixels``).
+SAMPLE = 20000
+#: Registration blocks by default: 4 of 256 px (a 2 x 2 layout). Each block costs the decoding of the
+#: tile it lies in on every date, plus its gradient fields; 4 blocks keep measuring within 15 % of
+#: unmixing (benchmarks/bench_comparability.py), still give a median and a spread, and the 3 needed
+#: (``min_blocks``) leave one block to a cloud or to featureless ground.
+N_BLOCKS = 4
 
 __all__ = ["reference_date", "block_layout", "measure_registration", "measure_radiometry", "measure_comparability",
            "registration_verdict", "correct_registration", "normalise_cube"]
@@ -80,7 +98,7 @@ def _snap(starts: list[int], size: int, chunks: tuple[int, ...]) -> list[int]:
     return out
 
 
-def block_layout(cube: xr.DataArray, n_blocks: int = 9, block: int = 256) -> list[tuple[slice, slice]]:
+def block_layout(cube: xr.DataArray, n_blocks: int = N_BLOCKS, block: int = 256) -> list[tuple[slice, slice]]:
     """Windows of :func:`unmix.comparability.block_windows`, each moved inside one chunk of a dask cube."""
     wins = block_windows((cube.sizes["y"], cube.sizes["x"]), n_blocks, block)
     if not isinstance(cube.data, da.Array):
@@ -92,43 +110,89 @@ def block_layout(cube: xr.DataArray, n_blocks: int = 9, block: int = 256) -> lis
             for y, x, w in zip(ys, xs, wins)]
 
 
-def _read_windows(cube: xr.DataArray, windows) -> list[np.ndarray]:
-    """The windows of a (time, band, y, x) cube, computed together: (time, band, rows, cols) each."""
-    cube = cube.transpose("time", "band", "y", "x")
-    return [np.asarray(p) for p in dask.compute(*[cube.isel(y=wy, x=wx).data for wy, wx in windows])]
+def _band_indices(cube: xr.DataArray, band) -> list[int]:
+    """Positions of the registration band(s): one name, several, or None for every band."""
+    bands = [str(b) for b in cube["band"].values]
+    if band is None:
+        return list(range(len(bands)))
+    wanted = [band] if isinstance(band, (str, bytes)) or np.ndim(band) == 0 else list(band)
+    missing = [str(w) for w in wanted if str(w) not in bands]
+    if missing or not wanted:
+        raise UnknownNameError(f"band {', '.join(repr(m) for m in missing) or '(none)'} for co-registration is not "
+                               f"in the stack; its bands are {', '.join(bands)}. Choose among them (or all).")
+    return [bands.index(str(w)) for w in wanted]
 
 
 def _band_index(cube: xr.DataArray, band) -> int:
-    bands = [str(b) for b in cube["band"].values]
-    if str(band) not in bands:
-        raise UnknownNameError(f"band {band!r} for co-registration is not in the stack; its bands are "
-                               f"{', '.join(bands)}. Choose one of them.")
-    return bands.index(str(band))
+    return _band_indices(cube, band)[0]
 
 
-def _date_shift(pieces, i_ref, t, upsample, min_valid, min_blocks):
-    found = [block_shift(p[i_ref], p[t], upsample=upsample, min_valid=min_valid) for p in pieces]
-    return combine_block_shifts(found, min_blocks=min_blocks)
+def _fields(blocks, bands, sigma, like=None):
+    """Fields of the blocks; with ``like`` (the reference's fields) each band weighed by the reference's
+    noise scale, so both fields of a pair weigh the bands alike (and noise is estimated once)."""
+    like = like or [None] * len(blocks)
+    return [block_field(b[bands], sigma=sigma, noise=None if r is None else r.noise) for b, r in zip(blocks, like)]
 
 
-def _registration(times, pieces, i_ref, *, band, block, upsample, min_valid, min_blocks, ref) -> xr.Dataset:
+def _date_task(ref_fields, blocks, *, bands, picks, settings):
+    """One date against the reference: its shift over the blocks (``bands`` only), the valid share of the
+    blocks and its sampled pixels (band, pixel) from the same read (``picks``: pixel indices per block)."""
+    found = None
+    if ref_fields is not None:
+        mine = _fields(blocks, bands, settings["block"]["sigma"], like=ref_fields)
+        found = combine_block_shifts([field_shift(r, m, **settings["block"]) for r, m in zip(ref_fields, mine)],
+                                     **settings["combine"])
+    valid = sum(int(np.isfinite(b[bands]).all(axis=0).sum()) for b in blocks) / max(1, sum(b[0].size for b in blocks))
+    sample = None
+    if picks is not None:
+        sample = np.concatenate([b.reshape(b.shape[0], -1)[:, k] for b, k in zip(blocks, picks)], axis=1)
+    return found, valid, sample
+
+
+def _measure_dates(cube, windows, i_ref, *, bands, picks, settings):
+    """The per-date tasks over the blocks, computed together: each date's blocks are read by its own task,
+    the reference's once (its fields transformed once for all dates), so memory holds the reference's
+    fields and the dates in flight."""
+    data = cube.transpose("time", "band", "y", "x").data
+    take = [(slice(None), wy, wx) for wy, wx in windows]
+    ref_fields = dask.delayed(_fields)([data[(i_ref, *w)] for w in take], bands, settings["block"]["sigma"])
+    tasks = [dask.delayed(_date_task)(None if t == i_ref else ref_fields, [data[(t, *w)] for w in take],
+                                      bands=bands, picks=picks, settings=settings)
+             for t in range(cube.sizes["time"])]
+    with _one_blas_thread():
+        return dask.compute(*tasks)
+
+
+def _one_blas_thread():
+    """BLAS on one thread while measuring: the dates already run in parallel, and the small matrix products
+    of the peak refinement waited tens of milliseconds for a BLAS thread on a loaded machine (0.5 ms alone)."""
+    from threadpoolctl import threadpool_limits
+
+    return threadpool_limits(limits=1, user_api="blas")
+
+
+def _registration_settings(upsample, min_valid, min_blocks, sigma, min_peak_ratio, max_peak_sd, max_spread) -> dict:
+    return {"block": dict(upsample=upsample, min_valid=min_valid, sigma=sigma, min_peak_ratio=min_peak_ratio,
+                          max_peak_sd=max_peak_sd),
+            "combine": dict(min_blocks=min_blocks, max_spread=max_spread)}
+
+
+def _shift_dataset(times, results, i_ref, *, band_names, block, n_windows, settings, ref) -> xr.Dataset:
     n_t = len(times)
     out = {k: np.full(n_t, np.nan) for k in ("shift_y", "shift_x", "shift_sd")}
     count = np.zeros(n_t, dtype=np.int64)
     reason = np.full(n_t, "", dtype=object)
-    others = [t for t in range(n_t) if t != i_ref]
-    # dates are independent: one task per date on dask's scheduler (FFTs release the GIL)
-    found = dask.compute(*[dask.delayed(_date_shift)(pieces, i_ref, t, upsample, min_valid, min_blocks)
-                           for t in others])
-    out["shift_y"][i_ref] = out["shift_x"][i_ref] = out["shift_sd"][i_ref] = 0.0
-    count[i_ref] = len(pieces)
-    for t, est in zip(others, found):
+    for t, (est, _, _) in enumerate(results):
+        if t == i_ref:
+            out["shift_y"][t] = out["shift_x"][t] = out["shift_sd"][t] = 0.0
+            count[t] = n_windows
+            continue
         out["shift_y"][t], out["shift_x"][t], out["shift_sd"][t] = est.dy, est.dx, est.sd
         count[t], reason[t] = est.n_blocks, est.reason
     attrs = {"units": "pixel"}
-    valid = sum(np.isfinite(p).sum(axis=(1, 2)) for p in pieces) / max(1, sum(p[0].size for p in pieces))
+    valid = np.array([v for _, v, _ in results], dtype=np.float32)
     return xr.Dataset(
-        {"valid_share": ("time", np.asarray(valid, np.float32),
+        {"valid_share": ("time", valid,
                          {"long_name": "share of valid pixels in the measured blocks", "units": "1"}),
          "shift_y": ("time", out["shift_y"], {**attrs, "long_name": "row shift aligning the date to the reference"}),
          "shift_x": ("time", out["shift_x"], {**attrs, "long_name": "column shift aligning the date to the reference"}),
@@ -137,34 +201,45 @@ def _registration(times, pieces, i_ref, *, band, block, upsample, min_valid, min
          "n_blocks": ("time", count, {"long_name": "blocks measured"}),
          "reason": ("time", reason.astype(str), {"long_name": "why the shift was not measured ('' if it was)"})},
         coords={"time": times},
-        attrs={"method": "phase correlation with upsampling (Guizar-Sicairos et al. 2008)", "band": str(band),
-               "reference": _date_label(ref), "block": block, "n_blocks": len(pieces), "upsample": upsample})
+        attrs={"method": "cross-correlation of sign-free gradient fields, upsampled peak (Argyriou & Vlachos "
+                         "2003; Guizar-Sicairos et al. 2008)", "band": ",".join(band_names),
+               "reference": _date_label(ref), "block": block, "n_blocks": n_windows,
+               "upsample": settings["block"]["upsample"], "min_peak_ratio": settings["block"]["min_peak_ratio"],
+               "max_peak_sd": settings["block"]["max_peak_sd"],
+               "max_spread": settings["combine"]["max_spread"]})
 
 
-def measure_registration(cube: xr.DataArray, *, band, reference, n_blocks: int = 9, block: int = 256,
-                         upsample: int = 20, min_valid: float = 0.5, min_blocks: int = 3) -> xr.Dataset:
-    """Sub-pixel shift of every date against ``reference`` from phase correlation over blocks.
+def measure_registration(cube: xr.DataArray, *, band, reference, n_blocks: int = N_BLOCKS, block: int = 256,
+                         upsample: int = 20, min_valid: float = 0.5, min_blocks: int = 3, sigma: float = SIGMA,
+                         min_peak_ratio: float = MIN_PEAK_RATIO, max_peak_sd: float = MAX_PEAK_SD,
+                         max_spread: float = MAX_SPREAD) -> xr.Dataset:
+    """Sub-pixel shift of every date against ``reference`` by correlating gradient fields over blocks.
 
-    Only ``n_blocks`` windows of ``block`` x ``block`` pixels of one band are read (spread over the scene,
-    each inside one chunk where it fits, computed together), so memory is bounded by the blocks
-    (``n_blocks x block^2 x n_dates`` values) and the chunks they touch.
+    Only ``n_blocks`` windows of ``block`` x ``block`` pixels (at least :data:`~unmix.comparability.MIN_BLOCK`;
+    a small scene gets fewer blocks, down to one covering it) of the registration band(s) are read, spread
+    over the scene, each inside one chunk where it fits; one task per date, so memory holds the
+    reference's blocks and the dates in flight.
 
     Parameters
     ----------
     cube : (time, band, y, x) DataArray
-    band : str
-        Band to correlate (a band name of the cube).
+    band : str, sequence of str or None
+        Band(s) to correlate (band names of the cube); None: every band. Several bands are summed as
+        sign-free gradient fields in noise units (:func:`unmix.comparability.orientation_field`), which
+        measures scenes whose edges show in some bands only (on the invented demo scene every band together
+        keeps registered dates within 0.05 px, the near-infrared alone within about 0.2 px).
     reference : date or None
         Reference date (see :func:`reference_date`; None: the date with most valid pixels).
-    n_blocks, block, upsample, min_valid, min_blocks
+    n_blocks, block, upsample, min_valid, min_blocks, sigma, min_peak_ratio, max_peak_sd, max_spread
         Layout of the blocks and the kernel's settings (:func:`unmix.comparability.block_shifts`).
 
     Returns
     -------
     Dataset on ``time``
         ``shift_y``, ``shift_x`` [pixel] (the shift that aligns the date to the reference), ``shift_sd``
-        [pixel] (spread between blocks: median absolute deviation x 1.4826), ``n_blocks`` measured and
-        ``reason`` ('' when measured, else why not; the shift is then NaN).
+        [pixel] (spread between blocks: median absolute deviation x 1.4826), ``n_blocks`` measured,
+        ``valid_share`` of the blocks and ``reason`` ('' when measured, else why not; the shift is then
+        NaN: too few valid pixels, no lasting texture, blocks that disagree).
 
     Raises
     ------
@@ -174,14 +249,18 @@ def measure_registration(cube: xr.DataArray, *, band, reference, n_blocks: int =
     References
     ----------
     Guizar-Sicairos, M., Thurman, S. T. and Fienup, J. R. (2008). doi:10.1364/OL.33.000156
+    Argyriou, V. and Vlachos, T. (2003). doi:10.1049/el:20030666
     """
-    k = _band_index(cube, band)
+    idx = _band_indices(cube, band)
     ref = reference_date(cube, reference)
     windows = block_layout(cube, n_blocks, block)
-    pieces = _read_windows(cube.isel(band=[k]), windows)
     i_ref = int(np.flatnonzero(cube["time"].values == ref)[0])
-    return _registration(cube["time"].values, [p[:, 0] for p in pieces], i_ref, band=band, block=block,
-                         upsample=upsample, min_valid=min_valid, min_blocks=min_blocks, ref=ref)
+    settings = _registration_settings(upsample, min_valid, min_blocks, sigma, min_peak_ratio, max_peak_sd,
+                                      max_spread)
+    sub = cube.isel(band=idx)
+    results = _measure_dates(sub, windows, i_ref, bands=list(range(len(idx))), picks=None, settings=settings)
+    return _shift_dataset(cube["time"].values, results, i_ref, band_names=[str(b) for b in sub["band"].values],
+                          block=block, n_windows=len(windows), settings=settings, ref=ref)
 
 
 def registration_verdict(shifts: xr.Dataset, *, warn: float = WARN_SHIFT, max_shift: float = MAX_SHIFT) -> xr.DataArray:
@@ -221,19 +300,13 @@ def _sample_scene(cube: xr.DataArray, sample: int, seed: int) -> np.ndarray:
     return values.transpose(0, 2, 1)
 
 
-def _sample_windows(pieces: list, sample: int, seed: int):
-    """A fixed random sample of the pixels of the windows, (time, pixel, band): numpy in, numpy out; dask
-    in, lazy out (each read task then keeps only its sampled pixels)."""
-    sizes = [p.shape[2] * p.shape[3] for p in pieces]
+def _window_picks(windows, sample: int, seed: int) -> list[np.ndarray]:
+    """A fixed random sample of ``sample`` pixels of the windows: flat pixel indices per window."""
+    sizes = [(wy.stop - wy.start) * (wx.stop - wx.start) for wy, wx in windows]
     total = int(sum(sizes))
     keep = np.sort(np.random.default_rng(seed).choice(total, size=min(sample, total), replace=False))
     starts = np.concatenate([[0], np.cumsum(sizes)])
-    parts = []
-    for p, a, b in zip(pieces, starts[:-1], starts[1:]):
-        idx = keep[(keep >= a) & (keep < b)] - a
-        parts.append(p.reshape(p.shape[:2] + (-1,))[:, :, idx])
-    xp = da if any(isinstance(p, da.Array) for p in parts) else np
-    return xp.concatenate(parts, axis=2).astype(np.float64).transpose(0, 2, 1)
+    return [keep[(keep >= a) & (keep < b)] - a for a, b in zip(starts[:-1], starts[1:])]
 
 
 def _radiometry(cube, values, i_ref, ref, *, seed, threshold, min_pixels, min_r2, gain_tolerance) -> xr.Dataset:
@@ -249,7 +322,8 @@ def _radiometry(cube, values, i_ref, ref, *, seed, threshold, min_pixels, min_r2
     others = [t for t in range(n_t) if t != i_ref]
     fit_one = functools.partial(fit_date, threshold=threshold, min_pixels=min_pixels, min_r2=min_r2,
                                 gain_tolerance=gain_tolerance, band_names=names)
-    fitted = dask.compute(*[dask.delayed(fit_one)(values[t], values[i_ref]) for t in others])
+    with _one_blas_thread():
+        fitted = dask.compute(*[dask.delayed(fit_one)(values[t], values[i_ref]) for t in others])
     for t, fit in zip(others, fitted):
         for k in fields:
             fields[k][t] = getattr(fit, k)
@@ -264,7 +338,7 @@ def _radiometry(cube, values, i_ref, ref, *, seed, threshold, min_pixels, min_r2
                              "threshold": threshold, "min_r2": min_r2, "gain_tolerance": gain_tolerance})
 
 
-def measure_radiometry(cube: xr.DataArray, *, reference, sample: int = 20000, seed: int = 0,
+def measure_radiometry(cube: xr.DataArray, *, reference, sample: int = SAMPLE, seed: int = 0,
                        threshold: float = 0.95, min_pixels: int = 50, min_r2: float = MIN_R2,
                        gain_tolerance: float = GAIN_TOLERANCE) -> xr.Dataset:
     """Gain and offset per date and band that map the date onto ``reference`` (pseudo-invariant pixels).
@@ -293,69 +367,31 @@ def measure_radiometry(cube: xr.DataArray, *, reference, sample: int = 20000, se
                        min_r2=min_r2, gain_tolerance=gain_tolerance)
 
 
-def measure_comparability(cube: xr.DataArray, *, band, reference, n_blocks: int = 9, block: int = 256,
-                          upsample: int = 20, min_valid: float = 0.5, min_blocks: int = 3, sample: int = 20000,
+def measure_comparability(cube: xr.DataArray, *, band, reference, n_blocks: int = N_BLOCKS, block: int = 256,
+                          upsample: int = 20, min_valid: float = 0.5, min_blocks: int = 3, sample: int = SAMPLE,
                           seed: int = 0, threshold: float = 0.95, min_pixels: int = 50, min_r2: float = MIN_R2,
-                          gain_tolerance: float = GAIN_TOLERANCE) -> tuple[xr.Dataset, xr.Dataset]:
+                          gain_tolerance: float = GAIN_TOLERANCE, sigma: float = SIGMA,
+                          min_peak_ratio: float = MIN_PEAK_RATIO, max_peak_sd: float = MAX_PEAK_SD,
+                          max_spread: float = MAX_SPREAD) -> tuple[xr.Dataset, xr.Dataset]:
     """Registration and radiometry from one read of the blocks (all bands).
 
     As :func:`measure_registration` and :func:`measure_radiometry`, but the radiometric sample is a fixed
-    random sample of the pixels of the registration blocks, so the stack is read once, only where the
-    blocks lie; memory holds the correlation band of the blocks and the sample. Returns ``(shifts, fits)``.
+    random sample of the pixels of the registration blocks, taken by the same per-date task that measures
+    the shift: the stack is read once, only where the blocks lie, and memory holds the reference's blocks,
+    the dates in flight and the sample. Returns ``(shifts, fits)``.
     """
-    k = _band_index(cube, band)
+    idx = _band_indices(cube, band)
     ref = reference_date(cube, reference)
     i_ref = int(np.flatnonzero(cube["time"].values == ref)[0])
-    full = cube.transpose("time", "band", "y", "x")
-    wins = [full.isel(y=wy, x=wx).data for wy, wx in block_layout(cube, n_blocks, block)]
-    # one read: the correlation band of each block and the sampled pixels; the blocks' other bands are
-    # dropped inside the read tasks, so memory holds one band of the blocks plus the sample
-    *bands, values = dask.compute(*[w[:, k] for w in wins], _sample_windows(wins, sample, seed))
-    shifts = _registration(cube["time"].values, [np.asarray(b) for b in bands], i_ref, band=band, block=block,
-                           upsample=upsample, min_valid=min_valid, min_blocks=min_blocks, ref=ref)
-    fits = _radiometry(cube, np.asarray(values), i_ref, ref, seed=seed, threshold=threshold,
-                       min_pixels=min_pixels, min_r2=min_r2, gain_tolerance=gain_tolerance)
+    windows = block_layout(cube, n_blocks, block)
+    settings = _registration_settings(upsample, min_valid, min_blocks, sigma, min_peak_ratio, max_peak_sd,
+                                      max_spread)
+    results = _measure_dates(cube, windows, i_ref, bands=idx, picks=_window_picks(windows, sample, seed),
+                             settings=settings)
+    shifts = _shift_dataset(cube["time"].values, results, i_ref, block=block, n_windows=len(windows),
+                            band_names=[str(cube["band"].values[k]) for k in idx], settings=settings, ref=ref)
+    values = np.stack([smp for _, _, smp in results]).astype(np.float64).transpose(0, 2, 1)  # (time, pixel, band)
+    fits = _radiometry(cube, values, i_ref, ref, seed=seed, threshold=threshold, min_pixels=min_pixels,
+                       min_r2=min_r2, gain_tolerance=gain_tolerance)
     fits.attrs["sampled_from"] = "registration blocks"
     return shifts, fits
-
-
-def _shift_chunk(block: np.ndarray, *, dy: np.ndarray, dx: np.ndarray, order: int,
-                 block_info=None) -> np.ndarray:
-    t0, t1 = block_info[0]["array-location"][0]
-    out = np.empty(block.shape, dtype=block.dtype)
-    for k, t in enumerate(range(t0, t1)):
-        out[k] = shift_image(block[k], float(dy[t]), float(dx[t]), order=order)
-    return out
-
-
-def correct_registration(cube: xr.DataArray, shifts: xr.Dataset, *, order: int = 3) -> xr.DataArray:
-    """Resample each date by its measured shift (lazy; chunks overlap by ``ceil(max|shift|) + 2`` pixels for
-    linear, ``+ 8`` for cubic interpolation).
-
-    A date whose shift is NaN (not measured) becomes all NaN: it cannot be corrected, so it is not
-    passed on as if it were aligned.
-    """
-    cube = cube.transpose("time", "band", "y", "x")
-    dy = shifts["shift_y"].reindex(time=cube["time"]).values.astype(np.float64)
-    dx = shifts["shift_x"].reindex(time=cube["time"]).values.astype(np.float64)
-    finite = np.concatenate([np.abs(dy[np.isfinite(dy)]), np.abs(dx[np.isfinite(dx)]), [0.0]])
-    # halo: the shift plus the interpolation footprint; the cubic spline's prefilter reaches further
-    # (its influence decays as 0.268^k), 8 pixels keep chunk seams below 1e-5 of the signal
-    depth = int(math.ceil(finite.max())) + (2 if order == 1 else 8)
-    data = cube.data if isinstance(cube.data, da.Array) else da.from_array(cube.data, chunks=(1, -1, -1, -1))
-    if min(min(data.chunks[2]), min(data.chunks[3])) < depth:  # a halo may not exceed a chunk
-        data = data.rechunk({2: max(4 * depth, 256), 3: max(4 * depth, 256)})
-    func = functools.partial(_shift_chunk, dy=dy, dx=dx, order=order)
-    out = da.map_overlap(func, data, depth={0: 0, 1: 0, 2: depth, 3: depth}, boundary="none",
-                         dtype=data.dtype, meta=np.array((), dtype=data.dtype))
-    return cube.copy(data=out).assign_attrs(registration_corrected="yes", registration_reference=shifts.attrs.get(
-        "reference", ""))
-
-
-def normalise_cube(cube: xr.DataArray, fits: xr.Dataset) -> xr.DataArray:
-    """Apply the fitted gain and offset per date and band (lazy): ``offset + gain * cube``."""
-    gain = fits["gain"].reindex(time=cube["time"], band=cube["band"]).astype(cube.dtype)
-    offset = fits["offset"].reindex(time=cube["time"], band=cube["band"]).astype(cube.dtype)
-    out = (offset + gain * cube).transpose(*cube.dims)
-    return out.assign_attrs(cube.attrs, radiometric_normalisation="IR-MAD + orthogonal regression",
-                            normalisation_reference=fits.attrs.get("reference", ""))
