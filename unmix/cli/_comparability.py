@@ -36,9 +36,9 @@ def comparability_options(func):
         click.option("--reference-date", "reference_date", default=None, metavar="YYYY-MM-DD",
                      help="Date every other date is compared with (co-registration, radiometry). Default: the date "
                           "with most valid pixels."),
-        click.option("--registration-band", "registration_band", default=None, metavar="BAND",
-                     help="Band the sub-pixel shifts are measured on (phase correlation over 9 blocks of 256 px). "
-                          "Default: the near-infrared band."),
+        click.option("--registration-band", "registration_band", default=None, metavar="BAND,...",
+                     help="Band(s) the sub-pixel shifts are measured on (upsampled phase correlation of the bands' "
+                          "edge orientations over 4 blocks of the scene). Default: every band together."),
         click.option("--max-shift", "max_shift", type=click.FloatRange(min=0, min_open=True), default=0.5,
                      show_default=True, help="Dates shifted more than this [pixels] are left out (or resampled with "
                                              "--correct-shift). Above 0.2 px a warning names the date."),
@@ -51,6 +51,9 @@ def comparability_options(func):
         click.option("--gain-tolerance", "gain_tolerance", type=click.FloatRange(min=0, min_open=True),
                      default=0.05, show_default=True,
                      help="Flag a date whose radiometric gain departs from 1 by more than this."),
+        click.option("--radiometry-exclude", "exclude_radiometry", is_flag=True, default=False,
+                     help="Leave out the dates whose radiometry is flagged (a gain beyond --gain-tolerance or a poor "
+                          "fit) instead of keeping them with the flag."),
         click.option("--no-registration-check", "no_registration", is_flag=True, default=False,
                      help="Do not measure the co-registration of the dates."),
         click.option("--no-radiometry-check", "no_radiometry", is_flag=True, default=False,
@@ -80,6 +83,7 @@ class CheckSettings:
     max_shift: float = 0.5
     correct_shift: bool = False
     normalise: bool = False
+    exclude_radiometry: bool = False
     gain_tolerance: float = 0.05
     registration: bool = True
     radiometry: bool = True
@@ -127,27 +131,11 @@ def settings_from(params: dict) -> CheckSettings:
     return CheckSettings(
         reference=params.get("reference_date"), band=params.get("registration_band"),
         max_shift=float(params.get("max_shift") or 0.5), correct_shift=bool(params.get("correct_shift")),
-        normalise=bool(params.get("normalise")), gain_tolerance=float(params.get("gain_tolerance") or 0.05),
+        normalise=bool(params.get("normalise")), exclude_radiometry=bool(params.get("exclude_radiometry")),
+        gain_tolerance=float(params.get("gain_tolerance") or 0.05),
         registration=not params.get("no_registration"), radiometry=not params.get("no_radiometry"),
         window=window, composite=params.get("composite"), target_doy=params.get("target_doy"),
     )
-
-
-def _default_band(cube: Any) -> str:
-    """The near-infrared band of the cube (role 'nir', or the sensor's nir band), else the last band."""
-    from ..sensors.roles import band_roles
-
-    bands = [str(b) for b in cube["band"].values]
-    if "nir" in bands:
-        return "nir"
-    sensor = cube.attrs.get("sensor")
-    try:
-        nir = band_roles(str(sensor))["nir"]
-        if nir in bands:
-            return nir
-    except Exception:  # noqa: BLE001 - no role table for this sensor: fall back
-        pass
-    return bands[-1]
 
 
 def _day(value: Any) -> str:
@@ -189,7 +177,8 @@ def check_dates(cube: Any, settings: CheckSettings) -> tuple[Any, Any, list[str]
 
     sub = cube.isel(time=np.flatnonzero(keep))
     shifts = fits = ref = None
-    band = settings.band or _default_band(cube)
+    band = [b.strip() for b in settings.band.split(",") if b.strip()] if settings.band else None
+    band_label = ", ".join(band) if band else "all bands"
     if (settings.registration or settings.radiometry) and sub.sizes["time"] > 1:
         ref = reference_date(sub, settings.reference)
         groups = _sensor_groups(sub)
@@ -234,14 +223,14 @@ def check_dates(cube: Any, settings: CheckSettings) -> tuple[Any, Any, list[str]
         done = "resampled" if settings.correct_shift else "left out"
         measured = len(index) - 1 - len(unmeasured)
         if measured <= 0:
-            lines.append(f"co-registration ({band}): not measurable on this stack "
+            lines.append(f"co-registration ({band_label}): not measurable on this stack "
                          f"({shifts['reason'].values[verdict == 'failed'][0]}); dates kept")
         else:
             if unmeasured:
                 warnings.warn(ComparabilityWarning(
                     f"the shift of {len(unmeasured)} date(s) could not be measured ({_listed(unmeasured)}: see the "
                     "ledger's reason); they are kept unchecked"), stacklevel=2)
-            lines.append(f"co-registration ({band}): largest shift {np.nanmax(size):.2f} px; "
+            lines.append(f"co-registration ({band_label}): largest shift {np.nanmax(size):.2f} px; "
                          f"{len(left) + int(correct.sum())} date(s) above --max-shift {settings.max_shift:g} px"
                          + (f" {done}: {_listed(left)}" if left else "")
                          + (f"; {len(warned)} above 0.2 px: {_listed(warned)}" if warned else "")
@@ -262,7 +251,11 @@ def check_dates(cube: Any, settings: CheckSettings) -> tuple[Any, Any, list[str]
             flag = str(fits["flag"].values[j])
             if not flag:
                 continue
-            flags[i].append(f"radiometry: {flag}")
+            departs = "gain departs" in flag or "poor fit" in flag
+            if departs and settings.exclude_radiometry:
+                reasons[i].append(f"radiometry departs (left out by --radiometry-exclude): {flag}")
+            else:
+                flags[i].append(f"radiometry: {flag}")
             if flag.startswith(("too few", "not measured")):
                 unmeasured.append(_day(times[i]))  # no invariant pixels to fit: said in the ledger, not a departure
             elif "gain departs" not in flag and "poor fit" not in flag:
@@ -276,10 +269,13 @@ def check_dates(cube: Any, settings: CheckSettings) -> tuple[Any, Any, list[str]
             warnings.warn(ComparabilityWarning(
                 f"radiometry departs from the reference date on {len(flagged)} date(s): {_listed(flagged)} (the "
                 "ledger has every band's gain, offset and R²)"
-                + ("" if settings.normalise else "; --normalise applies the fitted gains and offsets")), stacklevel=2)
+                + ("; left out (--radiometry-exclude)" if settings.exclude_radiometry
+                   else "" if settings.normalise else "; --normalise applies the fitted gains and offsets, "
+                   "--radiometry-exclude leaves such dates out")), stacklevel=2)
         lines.append(f"radiometry: {len(flagged)} date(s) flagged" + (f" ({_listed(flagged)})" if flagged else "")
                      + (f"; {len(unmeasured)} not measurable (too few invariant pixels, see the ledger)"
                         if unmeasured else "")
+                     + ("; left out" if settings.exclude_radiometry and flagged else "")
                      + ("; normalised" if settings.normalise else "; measured, not applied"))
     elif settings.radiometry:
         lines.append("radiometry: not measured (fewer than two dates)")
@@ -327,7 +323,7 @@ def check_dates(cube: Any, settings: CheckSettings) -> tuple[Any, Any, list[str]
         shift_sd=full_shift["shift_sd"] if shifts is not None else None,
         bands=bands if gain is not None else None, gain=gain, offset=offset, r2=r2, used=used, reason=text)
     ledger.attrs.update(verdicts=lines, reference_date=_day(ref) if ref is not None else "",
-                        registration_band=band if shifts is not None else "")
+                        registration_band=band_label if shifts is not None else "")
     return work, ledger, lines
 
 

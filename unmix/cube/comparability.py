@@ -43,8 +43,12 @@ from unmix.errors import UnknownNameError
 #: for six bands, whose entries n pixels give to a relative standard error near sqrt(2 / n); Anderson 2003,
 #: from memory), but only about 0.5 % of a related pair of dates pass the 0.95 no-change level (measured on
 #: benchmarks/bench_comparability.py): 20 000 keep about 100 invariant pixels, 10 000 only about 50, the
-#: least a fit accepts (``min_pixels``).
+#: least the default fit asked for.
 SAMPLE = 20000
+#: Fewest invariant pixels a date's fit accepts: each band's orthogonal regression has two parameters, and
+#: 25 pixels keep a small scene (100 x 100 px) measurable; the gain's standard error in the ledger says
+#: how well it is known (a choice of this package).
+MIN_INVARIANT = 25
 #: Registration blocks by default: 4 of 256 px (a 2 x 2 layout). Each block costs the decoding of the
 #: tile it lies in on every date, plus its gradient fields; 4 blocks keep measuring within 15 % of
 #: unmixing (benchmarks/bench_comparability.py), still give a median and a spread, and the 3 needed
@@ -339,7 +343,7 @@ def _radiometry(cube, values, i_ref, ref, *, seed, threshold, min_pixels, min_r2
 
 
 def measure_radiometry(cube: xr.DataArray, *, reference, sample: int = SAMPLE, seed: int = 0,
-                       threshold: float = 0.95, min_pixels: int = 50, min_r2: float = MIN_R2,
+                       threshold: float = 0.95, min_pixels: int = MIN_INVARIANT, min_r2: float = MIN_R2,
                        gain_tolerance: float = GAIN_TOLERANCE) -> xr.Dataset:
     """Gain and offset per date and band that map the date onto ``reference`` (pseudo-invariant pixels).
 
@@ -369,7 +373,7 @@ def measure_radiometry(cube: xr.DataArray, *, reference, sample: int = SAMPLE, s
 
 def measure_comparability(cube: xr.DataArray, *, band, reference, n_blocks: int = N_BLOCKS, block: int = 256,
                           upsample: int = 20, min_valid: float = 0.5, min_blocks: int = 3, sample: int = SAMPLE,
-                          seed: int = 0, threshold: float = 0.95, min_pixels: int = 50, min_r2: float = MIN_R2,
+                          seed: int = 0, threshold: float = 0.95, min_pixels: int = MIN_INVARIANT, min_r2: float = MIN_R2,
                           gain_tolerance: float = GAIN_TOLERANCE, sigma: float = SIGMA,
                           min_peak_ratio: float = MIN_PEAK_RATIO, max_peak_sd: float = MAX_PEAK_SD,
                           max_spread: float = MAX_SPREAD) -> tuple[xr.Dataset, xr.Dataset]:

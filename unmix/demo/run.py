@@ -162,7 +162,7 @@ def run_demo(out: str | Path, *, size: int = 160, n_time: int = 40, seed: int = 
     sample_dir, assessment_dir = out / "sample", out / "assessment"
     commands = [
         ["fractions", str(stack_dir), "--library", str(library_path), "--endmembers", ",".join(ENDMEMBERS),
-         "--doy-window", DOY_WINDOW, "--out", str(out), *flag],
+         "--doy-window", DOY_WINDOW, "--radiometry-exclude", "--out", str(out), *flag],
         ["trends", str(out / "fractions.nc"), "--rules", str(rules_path), "--zones", str(districts_path),
          "--zone-field", DISTRICT_FIELD, "--cover-change", "--cog", "--out", str(out), *flag],
         ["sample", str(out / "trends.nc"), "--map", SAMPLED_RULE, "--total", str(SAMPLE_SIZE), "--seed", "1",
