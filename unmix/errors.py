@@ -26,6 +26,7 @@ __all__ = [
     "SampleFormatError",
     "SampleReadError",
     "ZoneFileError",
+    "BrowserError",
     "UnmixWarning",
     "CollinearityWarning",
     "WindowWarning",
@@ -108,6 +109,10 @@ class SampleReadError(UnmixError, OSError):
 class ZoneFileError(InputError):
     """A zones file cannot be used: missing, unreadable, empty, without a CRS, or with geometries that are
     not polygons (file and feature named)."""
+
+
+class BrowserError(UnmixError, RuntimeError):
+    """Headless Chromium (report checks, PDF, screenshots) is missing, failed or did not answer in time."""
 
 
 class UnmixWarning(UserWarning):
