@@ -46,16 +46,20 @@ _OVERFLOW_JS = """((limit) => {
   const found = [];
   const name = el => el.tagName.toLowerCase() + (el.id ? '#' + el.id : '') +
     Array.from(el.classList, c => '.' + c).join('');
+  const beyond = r => r.right > limit + 0.5 || r.left < -0.5;
   for (const el of document.body.querySelectorAll('*')) {
     if (found.some(f => f.el.contains(el))) continue;
     const r = el.getBoundingClientRect();
     if (r.width === 0 && r.height === 0) continue;
     const cs = getComputedStyle(el);
+    // hidden or scrolled content; or its own text running past the page (no child element explains it)
     const clipped = cs.overflowX !== 'visible' && el.clientWidth > 0 && el.scrollWidth > el.clientWidth + 1;
-    if (r.right > limit + 0.5 || r.left < -0.5 || clipped)
+    const text = cs.overflowX === 'visible' && r.left + el.scrollWidth > limit + 0.5 &&
+      !Array.from(el.children).some(c => beyond(c.getBoundingClientRect()));
+    if (beyond(r) || clipped || text)
       found.push({el, element: name(el), text: (el.textContent || '').trim().replace(/\\s+/g, ' ').slice(0, 60),
-                  left: r.left, right: r.right, scroll_width: el.scrollWidth, client_width: el.clientWidth,
-                  clipped});
+                  left: r.left, right: Math.max(r.right, r.left + el.scrollWidth), scroll_width: el.scrollWidth,
+                  client_width: el.clientWidth, clipped});
   }
   return JSON.stringify(found.map(({el, ...rest}) => rest));
 })"""
