@@ -15,7 +15,6 @@ import tempfile
 from pathlib import Path
 
 import imagecodecs
-import numpy as np
 
 from unmix.cli.main import main as unmix_main
 from unmix.io.browser import Browser
