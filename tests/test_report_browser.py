@@ -110,6 +110,15 @@ def test_broken_page_is_caught(browser, tmp_path):
     assert len(check.problems) >= 6
 
 
+def test_lazy_images_below_the_screen_are_loaded_before_the_check(browser, tmp_path):
+    body = (f"<div style='height: 5000px'>spacer</div><img alt='lazy' loading='lazy' src='{_png_uri(12, 7)}'>"
+            "<img alt='lazy and missing' loading='lazy' src='gone.png'>")
+    check = browser.inspect(_page(tmp_path, body), height=600)
+    assert [(im.alt, im.loaded, im.width, im.height) for im in check.images] == [
+        ("lazy", True, 12, 7), ("lazy and missing", False, 0, 0)]
+    assert any("gone.png" in e for e in check.errors)
+
+
 def test_print_css_keeps_wide_content_on_the_page(browser, tmp_path):
     cells = "".join(f"<td>c-{i} holds several words</td>" for i in range(12))
     body = (f"<h1>Wide things</h1><table><tr>{cells}</tr></table>"

@@ -39,6 +39,17 @@ CHROMIUM_NAMES = ("chromium", "chromium-browser", "google-chrome", "google-chrom
 _INSTALL = "install Debian's package 'chromium' (apt-get install chromium) or set UNMIX_CHROMIUM to a Chromium executable"
 _MM_PER_INCH = 25.4
 
+# After the load event: images marked lazy are loaded as a reader scrolling (or printing) would load them,
+# then every image has loaded or failed and the fonts are ready (at most 20 s, so a stuck request cannot
+# hang the check; such an image is reported as not loaded).
+_SETTLE_JS = """(async () => {
+  const images = Array.from(document.images);
+  images.forEach(im => { if (im.loading === 'lazy') im.loading = 'eager'; });
+  const done = images.map(im => im.complete ? null :
+    new Promise(ok => { im.addEventListener('load', ok); im.addEventListener('error', ok); }));
+  await Promise.race([Promise.all([...done, document.fonts.ready]), new Promise(ok => setTimeout(ok, 20000))]);
+  return true;
+})()"""
 # Image states and the outermost elements that reach past the text width or clip their content.
 _IMAGES_JS = """JSON.stringify(Array.from(document.images, im => ({src: im.currentSrc || im.src || '',
   alt: im.alt || '', complete: im.complete, width: im.naturalWidth, height: im.naturalHeight})))"""
@@ -181,12 +192,12 @@ class Browser:
                 if nav.get("errorText"):
                     raise BrowserError(f"Chromium cannot open {html_path}: {nav['errorText']}")
                 dt.wait_event("Page.loadEventFired", session=session)
-                self._evaluate(session, "document.fonts.ready.then(() => true)")
+                self._evaluate(session, _SETTLE_JS)
                 yield session
             finally:
                 with contextlib.suppress(BrowserError):
                     dt.send("Target.closeTarget", {"targetId": target})
-                dt.events = [e for e in dt.events if e.get("sessionId") != session]
+                dt.events = [e for e in dt.events if e.get("sessionId") not in (session, None)]
 
     def _viewport(self, session: str, width: float, height: float) -> None:
         self._devtools.send("Emulation.setDeviceMetricsOverride", {
