@@ -36,8 +36,9 @@ PRINT_CSS = f"""
   thead {{ display: table-header-group; }}
   tr, caption, figcaption, li {{ break-inside: avoid; page-break-inside: avoid; }}
   h1, h2, h3, h4 {{ break-after: avoid; page-break-after: avoid; }}
-  /* 'anywhere' would let a table give its columns one letter of width; cells keep whole words */
-  th, td {{ overflow-wrap: break-word; }}
+  /* a cell may break inside a word (else a table of long names cannot fit), but keeps 3 em of width (else
+     a table with one long column gives the others one letter each) */
+  th, td {{ overflow-wrap: anywhere; min-width: 3em !important; }}
   p, li, dd, dt, a, caption, figcaption, code {{ overflow-wrap: anywhere; }}
   pre, code {{ white-space: pre-wrap !important; word-break: break-all; }}
   nav, .no-print {{ display: none !important; }}
