@@ -41,8 +41,9 @@ def browser():
 
 @pytest.fixture(scope="module")
 def demo_page(tmp_path_factory):
+    # the size tests/test_demo.py runs: every section of the report has data at it
     out = tmp_path_factory.mktemp("demo")
-    run_demo(out, size=48, n_time=16, echo=lambda *_: None)
+    run_demo(out, size=96, n_time=32, echo=lambda *_: None)
     return out / "report" / "report.html"
 
 
