@@ -27,6 +27,7 @@ __all__ = [
     "SampleReadError",
     "ZoneFileError",
     "PlanError",
+    "BrowserError",
     "UnmixWarning",
     "CollinearityWarning",
     "WindowWarning",
@@ -115,6 +116,10 @@ class ZoneFileError(InputError):
 class PlanError(InputError):
     """A plan file cannot be used: not TOML, an unknown key, a wrong value, a missing key or path, or choices
     that exclude each other (the file and the dotted key named)."""
+
+
+class BrowserError(UnmixError, RuntimeError):
+    """Headless Chromium (report checks, PDF, screenshots) is missing, failed or did not answer in time."""
 
 
 class UnmixWarning(UserWarning):
