@@ -38,11 +38,14 @@ _TABLES = ["trajectory_areas", "rule_areas", "dates", "parameters"]
               show_default=True, help="Folder for report.html, its CSV tables and figures/ (PNG).")
 @click.option("--title", default="Land-cover fractions and their trends", show_default=True,
               help="Title of the report.")
+@click.option("--pdf", is_flag=True, default=False,
+              help="Also print the page to OUT/report.pdf (A4) with headless Chromium (Debian's package 'chromium'; "
+                   "UNMIX_CHROMIUM may name another executable).")
 @overwrite_option
 @writes_products
 def report(trends: Path, fractions: Path | None, zones_file: Path | None, zone_field: str | None,
            points_file: Path | None, assessment_dir: Path | None, rmse_limit: float, rgb: str | None, out: Path,
-           title: str, overwrite: bool) -> None:
+           title: str, pdf: bool, overwrite: bool) -> None:
     """Write a self-contained HTML report of TRENDS.nc: fraction, slope, trajectory, change-date and rule maps,
     area tables (per trajectory, rule, zone, and the from-to table), time series, accuracy, data quality with
     the date ledger, methods in plain words, parameters and the caution. Its tables are written as CSV and its
@@ -54,8 +57,12 @@ def report(trends: Path, fractions: Path | None, zones_file: Path | None, zone_f
     from ..io.report import read_assessment, read_points, report_paths, write_report
     from ..report import build_report
 
+    if pdf:
+        from ..io.browser import find_chromium, write_report_pdf
+
+        find_chromium()  # no browser: stop before any work
     # claimed before any input is read: a busy, existing or unwritable report stops the run here
-    products = claim_products(report_paths(out, _TABLES), overwrite)
+    products = claim_products(report_paths(out, _TABLES) + ([out / "report.pdf"] if pdf else []), overwrite)
     trend_ds = open_product(trends)
     if "trajectory" not in trend_ds:
         raise InputError(f"{trends} holds no 'trajectory' variable; give a product of 'unmix trends'")
@@ -72,8 +79,11 @@ def report(trends: Path, fractions: Path | None, zones_file: Path | None, zone_f
                                          assessment=assessment, rmse_limit=rmse_limit,
                                          rgb=tuple(names) if names else None)
     written = write_report(page, tables, out, overwrite=overwrite, products=products, figures=figures)
-    products.commit()  # the page, its tables and figures appear together
-    echo_summary(f"report: {written[0]} (+ {len(tables)} CSV tables, {len(figures)} PNG figures)")
+    if pdf:
+        write_report_pdf(written[0], out / "report.pdf", products=products)
+    products.commit()  # the page, its tables, figures and PDF appear together
+    echo_summary(f"report: {written[0]} (+ {len(tables)} CSV tables, {len(figures)} PNG figures"
+                 + (", report.pdf" if pdf else "") + ")")
 
 
 def _zone_masks(trends, zones_file: Path | None, zone_field: str | None):

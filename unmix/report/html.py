@@ -17,6 +17,7 @@ import xarray as xr
 
 from .. import __version__
 from .methods import LABEL_MEANINGS, METHODS, REFERENCES, parameters_table
+from .print_css import PRINT_CSS
 from .sections import (
     Page,
     accuracy_section,
@@ -43,17 +44,15 @@ body{font-family:system-ui,sans-serif;max-width:1100px;margin:2em auto;padding:0
 h1{font-size:1.55em;margin-bottom:.2em}h2{font-size:1.25em;border-bottom:1px solid #bbb;margin-top:1.8em}
 h3{font-size:1.05em;margin-bottom:.3em}
 table{border-collapse:collapse;font-size:.85em;margin:.6em 0;max-width:100%}
-td,th{border:1px solid #c8c8c8;padding:.2em .55em;text-align:right;vertical-align:top;overflow-wrap:anywhere}
+td,th{border:1px solid #c8c8c8;padding:.2em .55em;text-align:right;vertical-align:top;overflow-wrap:break-word}
 th{background:#eeeeee}td:first-child,th:first-child{text-align:left}td.text,th.text{text-align:left}
 .caution{border:2px solid #444;padding:.6em 1em;background:#f6f6f6}
 .note{color:#444;font-size:.9em}.summary li{margin:.15em 0}
 figure{margin:1em 0;break-inside:avoid}figure img{max-width:100%;height:auto}
 figcaption{font-size:.85em;color:#444}
 dl dt{font-weight:600}dl dd{margin:0 0 .4em 1.2em}
-@page{size:A4;margin:14mm}
-@media print{body{max-width:none;margin:0;padding:0;font-size:10pt}h2{break-after:avoid}
- tr,figure,table{break-inside:avoid}a{color:#222;text-decoration:none}}
-"""
+@media print{h2{break-after:avoid}a{color:#222;text-decoration:none}}
+""" + PRINT_CSS
 
 
 def build_report(
