@@ -15,7 +15,7 @@ from unmix.demo.run import run_demo
 @pytest.fixture(scope="module")
 def products(tmp_path_factory):
     out = tmp_path_factory.mktemp("products")
-    run_demo(out, size=48, n_time=16, echo=lambda *_: None)
+    run_demo(out, size=96, n_time=32, echo=lambda *_: None)
     return out
 
 
@@ -47,15 +47,15 @@ def test_report_writes_page_and_tables(products, tmp_path, capsys):
     for data in embedded:
         assert image.imread(io.BytesIO(base64.b64decode(data)), format="png").ndim == 3
     areas = pd.read_csv(out / "trajectory_areas.csv")
-    # every pixel of each endmember map has exactly one label: 48 x 48 pixels per endmember
-    assert (areas.groupby("Endmember")["Pixels"].sum() == 48 * 48).all()
+    # every pixel of each endmember map has exactly one label: 96 x 96 pixels per endmember
+    assert (areas.groupby("Endmember")["Pixels"].sum() == 96 * 96).all()
     # 30 m pixels are 0.09 ha (unit definition)
     np.testing.assert_allclose(areas["Area [ha]"], areas["Pixels"] * 0.09, rtol=1e-9)
     rules = pd.read_csv(out / "rule_areas.csv")
     assert set(rules["Rule"]) == {"desertification", "clearing", "recovery"}
-    # the map's area in the page with a thousands separator (48 x 48 x 0.09 ha = 207.36 ha, no separator;
+    # the map's area in the page (96 x 96 x 0.09 ha = 829.44 ha);
     # the cover-change table's classes and the ledger are there)
-    assert "The map covers 207.4 ha" in page
+    assert "The map covers 829.4 ha" in page
     ledger = pd.read_csv(products / "dates.csv", keep_default_na=False)
     shown = pd.read_csv(out / "dates.csv", keep_default_na=False)
     assert shown["Date"].tolist() == ledger["date"].tolist()

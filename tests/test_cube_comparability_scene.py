@@ -84,4 +84,4 @@ def test_faint_band_alone_is_flagged_not_invented(scene):
     failed = reasons != ""
     assert np.all((size < WARN_SHIFT) | failed)
     assert all("correlation peak" in r for r in reasons[failed])
-    assert set(registration_verdict(res).values[others][failed]) == {"failed"}
+    assert set(registration_verdict(res).values[others][failed]) <= {"failed"}
