@@ -84,6 +84,7 @@ class CheckSettings:
     correct_shift: bool = False
     normalise: bool = False
     exclude_radiometry: bool = False
+    valid_range: tuple[float, float] | None = (-0.5, 2.0)
     gain_tolerance: float = 0.05
     registration: bool = True
     radiometry: bool = True
@@ -181,14 +182,17 @@ def check_dates(cube: Any, settings: CheckSettings) -> tuple[Any, Any, list[str]
     band_label = ", ".join(band) if band else "all bands"
     if (settings.registration or settings.radiometry) and sub.sizes["time"] > 1:
         ref = reference_date(sub, settings.reference)
+        # measured on plausible reflectance only (an undeclared fill value such as 1e30 is no data here too)
+        lo, hi = settings.valid_range if settings.valid_range else (-np.inf, np.inf)
+        seen = sub.where((sub >= lo) & (sub <= hi)) if settings.valid_range else sub
         groups = _sensor_groups(sub)
         if settings.registration and settings.radiometry and len(groups) == 1:
-            shifts, fits = measure_comparability(sub, band=band, reference=ref, gain_tolerance=settings.gain_tolerance)
+            shifts, fits = measure_comparability(seen, band=band, reference=ref, gain_tolerance=settings.gain_tolerance)
         else:
             if settings.registration:
-                shifts = measure_registration(sub, band=band, reference=ref)
+                shifts = measure_registration(seen, band=band, reference=ref)
             if settings.radiometry:
-                fits = _radiometry_by_sensor(sub, groups, ref, settings)
+                fits = _radiometry_by_sensor(seen, groups, ref, settings)
         lines.append(f"reference date: {_day(ref)}" + (" (most valid pixels)" if settings.reference is None else "")
                      + (f"; radiometry against the date with most valid pixels of each sensor ({len(groups)} sensors)"
                         if fits is not None and len(groups) > 1 else ""))

@@ -7,6 +7,7 @@ optionally with one Cloud-Optimized GeoTIFF per endmember.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import shlex
 import time
@@ -188,7 +189,7 @@ def fractions(ctx: click.Context, stack: tuple[str, ...], library: Path, sensor:
         M = np.asarray(on_bands(lib, sensor_obj, stack_bands, where=f"library {library}").spectra)
         sensor_label = sensor_obj.id
     all_dates = cube["time"].values
-    cube, ledger, verdicts = check_dates(cube, check_settings)
+    cube, ledger, verdicts = check_dates(cube, dataclasses.replace(check_settings, valid_range=vrange))
     if mesma and isinstance(M, dict):
         raise InputError(f"--mesma on a record that switches sensor ({sensor_label}) is not available; run it on "
                          "each sensor's dates separately, or leave --mesma out")

@@ -116,10 +116,16 @@ def orientation_field(image: np.ndarray, valid: np.ndarray, *, sigma: float = SI
         gx = (smooth[1:-1, 2:] - smooth[1:-1, :-2]) * k
         gy = (smooth[2:, 1:-1] - smooth[:-2, 1:-1]) * k
         # g^2 / |g| in real arithmetic: (gx^2 - gy^2, 2 gx gy) / |g|
-        mag = np.hypot(gx, gy)
-        np.divide(1.0, mag, out=mag, where=mag > 0)
-        re += (gx * gx - gy * gy) * mag
-        im += 2 * gx * gy * mag
+        with np.errstate(over="ignore", invalid="ignore"):  # huge finite values (undeclared fill) overflow
+            mag = np.hypot(gx, gy)
+            np.divide(1.0, mag, out=mag, where=mag > 0)
+            d_re = (gx * gx - gy * gy) * mag
+            d_im = 2 * gx * gy * mag
+        bad = ~(np.isfinite(d_re) & np.isfinite(d_im))  # such pixels carry no orientation, never a made-up one
+        d_re[bad] = 0.0
+        d_im[bad] = 0.0
+        re += d_re
+        im += d_im
     out = np.zeros((rows, cols), dtype=np.complex64)
     out.real[1:-1, 1:-1] = re
     out.imag[1:-1, 1:-1] = im
