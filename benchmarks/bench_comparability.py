@@ -140,7 +140,7 @@ def main(argv: list[str] | None = None) -> None:
     measured.isel(time=0, y=slice(0, 1), x=slice(0, 1)).compute()  # the tile decoder's first use (numba)
     t0 = time.perf_counter()
     ref = cube["time"].values[0]  # the user's choice; the most-valid search is timed separately below
-    shifts, fits = measure_comparability(measured, band=args.band, reference=ref, n_blocks=args.blocks,
+    shifts, fits = measure_comparability(measured, band=args.band.split(",") if args.band else None, reference=ref, n_blocks=args.blocks,
                                          block=args.block, upsample=20, seed=0)
     t2 = time.perf_counter()
     measuring = t2 - t0
