@@ -98,9 +98,9 @@ def trends(fractions: Path, out: Path, fdr_q: float, min_slope: float, min_step:
         rules=rules,
     )
     # the date ledger of the fractions (every date, used or not, and why) travels with the trends
-    ledger_vars = [k for k, v in ds.data_vars.items() if "ledger_name" in v.attrs]
-    if ledger_vars:
-        result = result.assign({k: ds[k].load() for k in ledger_vars})
+    from ..io.ledger import ledger_variable_names
+
+    result = result.assign({k: ds[k].load() for k in ledger_variable_names(ds)})
     zone_parameters = add_zone_tables(result, ds["fractions"], request, rules, rules_file) if request.active else {}
     parameters = {
         "fdr_q": fdr_q,

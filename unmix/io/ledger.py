@@ -27,7 +27,8 @@ from ..errors import InputError, StackReadError
 from .products.atomic import atomic_path
 from .products.claim import ProductSet
 
-__all__ = ["write_ledger_csv", "read_ledger_csv", "ledger_variables", "ledger_from_product", "find_ledger", "LEDGER_PREFIX"]
+__all__ = ["write_ledger_csv", "read_ledger_csv", "ledger_variables", "ledger_from_product", "find_ledger", "ledger_variable_names",
+           "LEDGER_PREFIX"]
 
 #: Prefix of the ledger's variables inside a product.
 LEDGER_PREFIX = "date_"
@@ -207,15 +208,22 @@ def ledger_variables(ledger: xr.Dataset, *, dim: str = "time") -> xr.Dataset:
     return out
 
 
+def ledger_variable_names(ds: xr.Dataset) -> list[str]:
+    """Names of the ledger variables a product carries (:func:`ledger_variables`); empty when it has none."""
+    return [k for k, v in ds.data_vars.items() if "ledger_name" in v.attrs]
+
+
 def ledger_from_product(ds: xr.Dataset) -> xr.Dataset:
     """The ledger carried in a product (:func:`ledger_variables`), back as :func:`build_ledger` gives it.
+
+    Only the ledger's variables are read: a lazily opened product's cube stays on disk.
 
     Raises
     ------
     InputError
         The product carries no ledger.
     """
-    names = {str(v.attrs["ledger_name"]): k for k, v in ds.data_vars.items() if "ledger_name" in v.attrs}
+    names = {str(ds[k].attrs["ledger_name"]): k for k in ledger_variable_names(ds)}
     if "used" not in names:
         raise InputError("the product carries no date ledger (no variable with ledger_name = 'used'); write it again "
                          "with a version of unmix that records the ledger")
@@ -255,12 +263,11 @@ def find_ledger(path: str | os.PathLike) -> xr.Dataset | None:
         if nc.suffix.lower() != ".nc" or not nc.is_file():
             continue
         with xr.open_dataset(nc, decode_times=False) as probe:
-            carries = any("ledger_name" in v.attrs for v in probe.data_vars.values())
+            carries = bool(ledger_variable_names(probe))
         if carries:
             ds = open_product(nc)
-            try:  # the ledger's variables only: never the product's cube
-                names = [k for k, v in ds.data_vars.items() if "ledger_name" in v.attrs]
-                return ledger_from_product(ds[names].load())
+            try:
+                return ledger_from_product(ds)
             finally:
                 ds.close()
     if path.is_dir() and (path / "dates.csv").is_file():

@@ -137,12 +137,9 @@ def build_report(
 
 
 def _ledger(product: xr.Dataset):
-    from ..io.ledger import ledger_from_product
+    from ..io.ledger import ledger_from_product, ledger_variable_names
 
-    names = [k for k, v in product.data_vars.items() if "ledger_name" in v.attrs]
-    if not names:
-        return None
-    return ledger_from_product(product[names].load())
+    return ledger_from_product(product) if ledger_variable_names(product) else None
 
 
 def _summary(fractions, trends: xr.Dataset, ledger) -> str:
