@@ -91,7 +91,7 @@ def _zone_masks(trends, zones_file: Path | None, zone_field: str | None):
     import json
 
     from ..cube.georef import georef_of
-    from ..cube.zones import zone_weights
+    from ..cube.zones import zone_masks
     from ..io.zones import read_zones
 
     recorded = json.loads(trends.attrs.get("parameters", "{}")).get("zones") or {}
@@ -101,6 +101,4 @@ def _zone_masks(trends, zones_file: Path | None, zone_field: str | None):
         zones_file = Path(recorded["file"])
     field = zone_field or recorded.get("field") or "name"
     wkt, _ = georef_of(trends)
-    zones = read_zones(zones_file, name_field=field, crs=wkt or None)
-    weights = zone_weights(zones, trends["trajectory"].isel(endmember=0), "centre").load()
-    return {name: weights.sel(zone=name).values > 0.5 for name in zones.names}
+    return zone_masks(read_zones(zones_file, name_field=field, crs=wkt or None), trends["trajectory"].isel(endmember=0))

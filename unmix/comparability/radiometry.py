@@ -155,8 +155,13 @@ def irmad(x: np.ndarray, y: np.ndarray, *, max_iter: int = 50, tol: float = IRMA
         fit = _irmad(x[::step], y[::step], max_iter, tol)
         z = np.concatenate([x, y], axis=1)
         mad = z @ fit.transform - fit.offset
-        chi2 = (mad * mad) @ (1.0 / np.maximum(2.0 * (1.0 - fit.rho), 1e-12))
+        chi2 = _chi2(mad, fit.rho)
         return MadResult(mad, chi2, special.chdtrc(p, chi2), fit.rho, fit.iterations, fit.converged)
+
+
+def _chi2(mad: np.ndarray, rho: np.ndarray) -> np.ndarray:
+    """Sum of the standardised squared MAD variates (variance of a MAD variate: 2 (1 - rho))."""
+    return (mad * mad) @ (1.0 / np.maximum(2.0 * (1.0 - rho), 1e-12))
 
 
 def _irmad(x: np.ndarray, y: np.ndarray, max_iter: int, tol: float) -> MadResult:
@@ -178,8 +183,7 @@ def _irmad(x: np.ndarray, y: np.ndarray, max_iter: int, tol: float) -> MadResult
         b = s22_inv_s21 @ a / np.where(rho > 0, rho, 1.0)  # unit variance of v = b'y, corr(u, v) = rho
         ab = np.concatenate([a, -b])  # mad = a'(x - mean_x) - b'(y - mean_y) in one product
         mad = z @ ab - mean @ ab
-        sigma2 = np.maximum(2.0 * (1.0 - rho), 1e-12)  # variance of a MAD variate
-        chi2 = (mad * mad) @ (1.0 / sigma2)
+        chi2 = _chi2(mad, rho)
         w = special.chdtrc(p, chi2)  # chi-square survival function: P(chi2_p > chi2)
         if np.max(np.abs(rho - rho_old)) < tol:
             converged = True

@@ -40,7 +40,8 @@ from ..errors import InputError
 from ..zones import zone_class_tally
 from .georef import georef_of, pixel_area_rows
 
-__all__ = ["Zones", "ZoneRaster", "RESERVED_ZONES", "zone_weights", "zone_area_table", "area_table_frame"]
+__all__ = ["Zones", "ZoneRaster", "RESERVED_ZONES", "zone_weights", "zone_masks", "zone_area_table",
+           "area_table_frame"]
 
 #: Rows the tables add after the zones.
 RESERVED_ZONES = ("all_zones", "outside_zones", "whole_map")
@@ -160,6 +161,13 @@ def zone_weights(zones: Zones, like: xr.DataArray | xr.Dataset, mode: ZoneRaster
         for j, w in enumerate(xchunks)] for i, h in enumerate(ychunks)]
     data = da.concatenate([da.concatenate(row, axis=2) for row in blocks], axis=1)
     return xr.DataArray(data, dims=("zone", "y", "x"), coords=coords)
+
+
+def zone_masks(zones: Zones, like: xr.DataArray | xr.Dataset) -> dict[str, np.ndarray]:
+    """Each zone as a (y, x) boolean mask on ``like``'s grid: the pixels whose centre lies inside it
+    (:func:`zone_weights` in ``centre`` mode), computed at once."""
+    weights = zone_weights(zones, like, ZoneRaster.CENTRE).load()
+    return {name: weights.sel(zone=name).values > 0.5 for name in zones.names}
 
 
 def _delayed(func):

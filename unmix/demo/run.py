@@ -18,6 +18,8 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
+from ..cube.georef import georef_of
+from ..cube.zones import zone_masks
 from ..errors import OutputExistsError
 from ..io.archive.write import write_landsat_l2
 from ..io.ledger import ledger_from_product
@@ -25,12 +27,12 @@ from ..io.library import read_library, shipped_library_path
 from ..io.products import open_product, write_netcdf
 from ..io.report import read_assessment, report_paths, write_points, write_report
 from ..io.sample import write_interpreted_sample
-from ..io.zones import write_zones_file
+from ..io.zones import read_zones, write_zones_file
 from ..report import build_report
 from ..sensors.roles import DEFAULT_ROLES, bands_for_roles
 from ..spectra import resample
 from .reference import DISTRICT_FIELD, demo_points, district_polygons, interpret_sample, true_rule
-from .scenario import ENDMEMBERS, ZONES, make_scenario
+from .scenario import DRY_SEASON_DOY, ENDMEMBERS, ZONES, make_scenario
 from .score import date_checks, fraction_errors, sample_areas, trajectory_hits
 
 __all__ = ["DemoResult", "RULES", "SENSORS", "SWITCH_DATE", "inject_faults", "run_demo", "sensor_of_dates"]
@@ -48,8 +50,9 @@ BRIGHT = {"at": 0.65, "band": "nir", "gain": 1.1}
 #: Rule map the demo samples for accuracy and sample-based area, and the sample size.
 SAMPLED_RULE = "desertification"
 SAMPLE_SIZE = 300
-#: Day-of-year window the demo keeps (the dry season of the record, see scenario.DRY_SEASON_DOY).
-DOY_WINDOW = "215-335"
+#: Day-of-year window the demo keeps: the record's dry season (scenario.DRY_SEASON_DOY) and the dates'
+#: jitter of up to 10 days either side.
+DOY_WINDOW = f"{DRY_SEASON_DOY[0] - 10}-{DRY_SEASON_DOY[1] + 10}"
 RULES = """\
 # Modification rules of the invented Marrow Creek demo (see 'unmix trends --help' for the syntax).
 desertification = green_vegetation:gradual_decrease & sand:gradual_increase
@@ -190,7 +193,8 @@ def run_demo(out: str | Path, *, size: int = 160, n_time: int = 40, seed: int = 
     checks = date_checks(faults, ledger_from_product(fractions))
     assessment = read_assessment(assessment_dir)
     areas = sample_areas(assessment["accuracy"], true_rule(scenario, SAMPLED_RULE), SAMPLED_RULE)
-    zones = {name: mask for name, mask in zip(names, _district_masks(trends, districts_path))}
+    zones = zone_masks(read_zones(districts_path, name_field=DISTRICT_FIELD, crs=georef_of(trends)[0]),
+                       trends["trajectory"].isel(endmember=0))
     page, tables, figures = build_report(
         fractions, trends, title="Marrow Creek (invented demo scene): fractions and trends",
         zones=zones, points=points, assessment=assessment,
@@ -213,16 +217,6 @@ def run_demo(out: str | Path, *, size: int = 160, n_time: int = 40, seed: int = 
     return DemoResult(out=out, commands=["unmix " + shlex.join(a) for a in commands], errors=errors,
                       hits=hits, checks=checks, rule_areas=tables["rule_areas"], areas=areas,
                       pivot_disc_ha=scenario.pivot_disc_ha, report=written[0])
-
-
-def _district_masks(trends: xr.Dataset, path: Path) -> list[np.ndarray]:
-    from ..cube.georef import georef_of
-    from ..cube.zones import zone_weights
-    from ..io.zones import read_zones
-
-    zones = read_zones(path, name_field=DISTRICT_FIELD, crs=georef_of(trends)[0])
-    weights = zone_weights(zones, trends["trajectory"].isel(endmember=0), "centre").load()
-    return [weights.sel(zone=name).values > 0.5 for name in zones.names]
 
 
 def _date_at(dates: np.ndarray, share: float) -> int:

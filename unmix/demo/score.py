@@ -112,20 +112,10 @@ def sample_areas(accuracy: pd.DataFrame, truth: np.ndarray, rule: str, pixel_ha:
         Area of one pixel [ha] (30 m pixels: 0.09 ha).
     """
     true_ha = {"true": float(truth.sum()) * pixel_ha, "false": float((~truth).sum()) * pixel_ha}
-    cols = {c.lower(): c for c in accuracy.columns}
-
-    def col(*names):
-        for n in names:
-            for key, real in cols.items():
-                if key.startswith(n):
-                    return real
-        raise KeyError(names)
-
-    klass, mapped, area, ci = col("class", "map_class"), col("mapped_area"), col("area_ha", "area"), col("area_ci95")
     rows = []
     for _, r in accuracy.iterrows():
-        name = str(r[klass]).lower()
-        rows.append({"rule": rule, "class": name, "mapped [ha]": float(r[mapped]),
-                     "sample-based [ha]": float(r[area]), "± 95 % [ha]": float(r[ci]),
+        name = str(r["class"]).lower()  # pandas reads the classes 'true' / 'false' as booleans
+        rows.append({"rule": rule, "class": name, "mapped [ha]": float(r["mapped_area_ha"]),
+                     "sample-based [ha]": float(r["area_ha"]), "± 95 % [ha]": float(r["area_ci95_ha"]),
                      "true [ha]": true_ha.get(name, float("nan"))})
     return pd.DataFrame(rows)

@@ -132,10 +132,9 @@ def areas_section(page: Page, trends: xr.Dataset) -> None:
     page.add("<h3>Per trajectory</h3>")
     page.table("trajectory_areas", trajectory_area_table(trends))
     rules = rule_area_table(trends)
-    page.tables["rule_areas"] = rules
+    page.tables["rule_areas"] = rules  # written as CSV even when empty
     if len(rules):
-        page.add("<h3>Per modification rule</h3>")
-        page.table("rule_areas", rules, text_columns=("Rule", "Expression"))
+        page.add("<h3>Per modification rule</h3>" + table_html(rules, text_columns=("Rule", "Expression")))
     for name, df in zone_area_tables(trends).items():
         page.add("<h3>" + ("Per zone and trajectory" if "trajectory" in name else "Per zone and rule") + "</h3>")
         page.table(name, df)
