@@ -183,8 +183,10 @@ def check_dates(cube: Any, settings: CheckSettings) -> tuple[Any, Any, list[str]
     if (settings.registration or settings.radiometry) and sub.sizes["time"] > 1:
         ref = reference_date(sub, settings.reference)
         # measured on plausible reflectance only (an undeclared fill value such as 1e30 is no data here too)
-        lo, hi = settings.valid_range if settings.valid_range else (-np.inf, np.inf)
-        seen = sub.where((sub >= lo) & (sub <= hi)) if settings.valid_range else sub
+        seen = sub
+        if settings.valid_range:
+            lo, hi = settings.valid_range
+            seen = sub.where((sub >= lo) & (sub <= hi))
         groups = _sensor_groups(sub)
         if settings.registration and settings.radiometry and len(groups) == 1:
             shifts, fits = measure_comparability(seen, band=band, reference=ref, gain_tolerance=settings.gain_tolerance)

@@ -188,7 +188,6 @@ def fractions(ctx: click.Context, stack: tuple[str, ...], library: Path, sensor:
     else:
         M = np.asarray(on_bands(lib, sensor_obj, stack_bands, where=f"library {library}").spectra)
         sensor_label = sensor_obj.id
-    all_dates = cube["time"].values
     cube, ledger, verdicts = check_dates(cube, dataclasses.replace(check_settings, valid_range=vrange))
     if mesma and isinstance(M, dict):
         raise InputError(f"--mesma on a record that switches sensor ({sensor_label}) is not available; run it on "
@@ -263,7 +262,7 @@ def fractions(ctx: click.Context, stack: tuple[str, ...], library: Path, sensor:
     extra = f" (+{len(cog_paths)} COG)" if cog_paths else ""
     echo_summary(
         f"fractions: {pixels} pixels x {n_t} dates x {len(names)} endmembers ({'MESMA, ' if mesma else ''}{constraint}); "
-        f"mean rmse {mean_rmse:.4f}; valid {100 * share:.1f} % of pixel-dates; {used} of {len(all_dates)} dates used "
+        f"mean rmse {mean_rmse:.4f}; valid {100 * share:.1f} % of pixel-dates; {used} of {ledger.sizes['time']} dates used "
         f"(ledger {ledger_path.name}); "
         f"-> {nc_path}{extra}; {time.perf_counter() - started:.1f} s on {mode}"
     )
