@@ -17,7 +17,7 @@ Canty, M. J. and Nielsen, A. A. (2008). doi:10.1016/j.rse.2007.07.013
 
 from __future__ import annotations
 
-from .orientation import SIGMA, band_noise, inside_mask, noise_sd, orientation_field
+from .orientation import SIGMA, band_noise, inside_mask, noise_sd, orientation_field, valid_pixels
 from .phenology import (
     DAYS_PER_YEAR,
     DateWindow,
@@ -69,7 +69,7 @@ __all__ = [
     "irmad", "normalise", "orthogonal_regression",
     "MAX_PEAK_SD", "MAX_SHIFT", "MAX_SPREAD", "MIN_BLOCK", "MIN_PEAK_RATIO", "WARN_SHIFT", "BlockField", "BlockShift", "ShiftEstimate",
     "block_field", "block_shift", "block_shifts", "block_windows", "combine_block_shifts", "field_shift",
-    "SIGMA", "band_noise", "inside_mask", "noise_sd", "orientation_field", "shift_image",
+    "SIGMA", "band_noise", "inside_mask", "noise_sd", "orientation_field", "valid_pixels", "shift_image",
 
     "DAYS_PER_YEAR",
     "DateWindow",

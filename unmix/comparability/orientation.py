@@ -15,7 +15,9 @@ from __future__ import annotations
 import numpy as np
 from scipy import ndimage
 
-__all__ = ["SIGMA", "band_noise", "inside_mask", "noise_sd", "orientation_field"]
+from ._orientation_numba import all_finite, orientation_sum
+
+__all__ = ["SIGMA", "band_noise", "inside_mask", "noise_sd", "orientation_field", "valid_pixels"]
 
 #: Scale of the Gaussian-derivative gradients [pixel]: smooths sensor noise, keeps edges one pixel apart.
 SIGMA = 1.0
@@ -66,7 +68,8 @@ def orientation_field(image: np.ndarray, valid: np.ndarray, *, sigma: float = SI
     whose contrasts run opposite) still matches. Gradients rather than levels make the correlation blind
     to the broad changes of level that real cover change and seasons bring (Argyriou and Vlachos 2003).
     Pixels outside :func:`inside_mask` (near no data or the block's edge) are zero, so filled gaps make
-    no edges and each date can be transformed once, with its own gaps. Computed in single precision.
+    no edges and each date can be transformed once, with its own gaps. Planes and result in single precision
+    (the compiled kernel :func:`unmix.comparability._orientation_numba.orientation_sum`).
 
     Parameters
     ----------
@@ -105,31 +108,39 @@ def orientation_field(image: np.ndarray, valid: np.ndarray, *, sigma: float = SI
     re = np.zeros((rows - 2, cols - 2), dtype=np.float32)  # the double-angle field, interior pixels
     im = np.zeros((rows - 2, cols - 2), dtype=np.float32)
     noise = band_noise(planes, valid) if noise is None else np.asarray(noise, dtype=np.float64)
-    for plane, scale in zip(planes, noise):
-        if not scale > 0:
-            continue
-        filled = np.where(valid, plane, plane[valid].mean()).astype(np.float32)
-        # smoothed once, then central differences: the Gaussian-derivative gradient up to the difference
-        # operator, at a third of the filtering cost (the filters stop at 3 sigma)
-        smooth = ndimage.gaussian_filter(filled, sigma, truncate=3.0, mode="nearest")
-        k = np.float32(0.5 / scale)
-        gx = (smooth[1:-1, 2:] - smooth[1:-1, :-2]) * k
-        gy = (smooth[2:, 1:-1] - smooth[:-2, 1:-1]) * k
-        # g^2 / |g| in real arithmetic: (gx^2 - gy^2, 2 gx gy) / |g|
-        with np.errstate(over="ignore", invalid="ignore"):  # huge finite values (undeclared fill) overflow
-            mag = np.hypot(gx, gy)
-            np.divide(1.0, mag, out=mag, where=mag > 0)
-            d_re = (gx * gx - gy * gy) * mag
-            d_im = 2 * gx * gy * mag
-        bad = ~(np.isfinite(d_re) & np.isfinite(d_im))  # such pixels carry no orientation, never a made-up one
-        d_re[bad] = 0.0
-        d_im[bad] = 0.0
-        re += d_re
-        im += d_im
+    # smoothed once, then central differences: the Gaussian-derivative gradient up to the difference
+    # operator, at a third of the filtering cost; taps as scipy.ndimage.gaussian_filter(truncate=3) samples
+    # them, so the kernel stops at 3 sigma
+    radius = int(3.0 * sigma + 0.5)
+    taps = np.exp(-0.5 * (np.arange(-radius, radius + 1) / sigma) ** 2)
+    orientation_sum(planes.astype(np.float32, copy=False), np.ascontiguousarray(valid, dtype=bool),
+                    np.ascontiguousarray(noise, dtype=np.float64), taps / taps.sum(), re, im)
     out = np.zeros((rows, cols), dtype=np.complex64)
     out.real[1:-1, 1:-1] = re
     out.imag[1:-1, 1:-1] = im
     out[~inside] = 0.0
+    return out
+
+
+def valid_pixels(image: np.ndarray) -> np.ndarray:
+    """Pixels of a (rows, cols) or (bands, rows, cols) block where every band is finite.
+
+    The same as ``np.isfinite(image).all(axis=0)``, in one pass without a temporary per band (blocks
+    from the stack reader keep a pixel's bands side by side, which numpy's reduction reads slowly).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> valid_pixels(np.array([[[1.0, np.nan]], [[2.0, 3.0]]])).tolist()
+    [[True, False]]
+    """
+    image = np.asarray(image)
+    planes = image[None] if image.ndim == 2 else image
+    out = np.empty(planes.shape[1:], dtype=bool)
+    if planes.dtype.kind != "f":
+        out[:] = True
+        return out
+    all_finite(planes, out)
     return out
 
 

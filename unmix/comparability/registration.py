@@ -25,13 +25,14 @@ doi:10.1109/36.175340
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
 from scipy import fft
 
-from .orientation import SIGMA, band_noise, inside_mask, orientation_field
+from .orientation import SIGMA, band_noise, inside_mask, orientation_field, valid_pixels
 
 __all__ = ["BlockShift", "ShiftEstimate", "block_shift", "block_shifts", "block_windows", "combine_block_shifts",
            "BlockField", "block_field", "field_shift", "WARN_SHIFT", "MAX_SHIFT", "MAX_PEAK_SD", "MAX_SPREAD",
@@ -213,14 +214,24 @@ def block_field(block: np.ndarray, *, sigma: float = SIGMA, noise: np.ndarray | 
     if block.ndim not in (2, 3):
         raise ValueError(f"a block must be 2-D (rows, cols) or 3-D (bands, rows, cols), got shape {block.shape}")
     planes = block[None] if block.ndim == 2 else block
-    valid = np.isfinite(planes).all(axis=0)
+    valid = valid_pixels(planes)
     inside = inside_mask(valid, sigma)
-    if not inside.any() or all(np.ptp(p[valid]) == 0 for p in planes):
+    if not inside.any():
         return BlockField(valid, inside, None, None)
-    taper = np.outer(np.hanning(valid.shape[0]), np.hanning(valid.shape[1])).astype(np.float32)
     noise = band_noise(planes, valid) if noise is None else noise
-    field = orientation_field(planes, valid, sigma=sigma, noise=noise) * taper
+    field = orientation_field(planes, valid, sigma=sigma, noise=noise)
+    if not field.any():  # constant bands (or bands without noise scale): nothing to correlate
+        return BlockField(valid, inside, None, None, noise)
+    field *= _hann(*valid.shape)
     return BlockField(valid, inside, field, fft.fft2(field), noise)
+
+
+@functools.lru_cache(maxsize=8)
+def _hann(rows: int, cols: int) -> np.ndarray:
+    """Two-dimensional Hann taper of a block (kept for the next block of the same shape)."""
+    taper = np.outer(np.hanning(rows), np.hanning(cols)).astype(np.float32)
+    taper.flags.writeable = False
+    return taper
 
 
 def _paired(one: BlockField, other: BlockField) -> np.ndarray:

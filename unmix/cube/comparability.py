@@ -35,6 +35,7 @@ from unmix.comparability import (
     combine_block_shifts,
     field_shift,
     fit_date,
+    valid_pixels,
 )
 from unmix.cube.corrections import correct_registration, normalise_cube
 from unmix.errors import UnknownNameError
@@ -146,7 +147,10 @@ def _date_task(ref_fields, blocks, *, bands, picks, settings):
         mine = _fields(blocks, bands, settings["block"]["sigma"], like=ref_fields)
         found = combine_block_shifts([field_shift(r, m, **settings["block"]) for r, m in zip(ref_fields, mine)],
                                      **settings["combine"])
-    valid = sum(int(np.isfinite(b[bands]).all(axis=0).sum()) for b in blocks) / max(1, sum(b[0].size for b in blocks))
+        masks = [f.valid for f in mine]
+    else:
+        masks = [valid_pixels(b[bands]) for b in blocks]
+    valid = sum(int(m.sum()) for m in masks) / max(1, sum(m.size for m in masks))
     sample = None
     if picks is not None:
         sample = np.concatenate([b.reshape(b.shape[0], -1)[:, k] for b, k in zip(blocks, picks)], axis=1)
