@@ -147,3 +147,21 @@ def test_mark_unused_joins_reasons_and_aligns_by_date():
     assert out.used.values.tolist() == led.used.values.tolist()
     out = mark_unused(led, ["late", "", "", "", "", ""])
     assert out.used.values.tolist() == [False, True, True, False, False, True]
+
+
+def test_find_ledger_in_a_product_a_folder_and_a_stack(tmp_path, make_netcdf_stack):
+    from unmix.io.ledger import find_ledger
+
+    led = _ledger()
+    product = xr.Dataset({"fraction": (("time", "y", "x"), np.zeros((6, 2, 3), np.float32))},
+                         coords={"time": led.time.values, "y": [15.0, 5.0], "x": [5.0, 15.0, 25.0]})
+    folder = tmp_path / "out"
+    folder.mkdir()
+    nc_path = write_netcdf(product.merge(ledger_variables(led)), folder / "fractions.nc")
+    xr.testing.assert_identical(find_ledger(nc_path), led)  # the file itself
+    xr.testing.assert_identical(find_ledger(folder), led)  # a product folder: its fractions.nc
+    (folder / "fractions.nc").unlink()
+    write_ledger_csv(led, folder / "dates.csv")
+    xr.testing.assert_identical(find_ledger(folder), led)  # no product left: the folder's CSV
+    stack = make_netcdf_stack(name="stack.nc").files[0]  # an input stack carries no ledger
+    assert find_ledger(stack) is None

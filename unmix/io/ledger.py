@@ -262,14 +262,12 @@ def find_ledger(path: str | os.PathLike) -> xr.Dataset | None:
     for nc in candidates:
         if nc.suffix.lower() != ".nc" or not nc.is_file():
             continue
-        with xr.open_dataset(nc, decode_times=False) as probe:
-            carries = bool(ledger_variable_names(probe))
-        if carries:
-            ds = open_product(nc)
-            try:
+        ds = open_product(nc)  # lazy: only the ledger's variables are read
+        try:
+            if ledger_variable_names(ds):
                 return ledger_from_product(ds)
-            finally:
-                ds.close()
+        finally:
+            ds.close()
     if path.is_dir() and (path / "dates.csv").is_file():
         return read_ledger_csv(path / "dates.csv")
     return None
