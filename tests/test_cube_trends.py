@@ -253,3 +253,31 @@ def test_bad_input_errors_name_the_problem():
         trend_cube(ds, correction="bogus")
     with pytest.raises(InputError, match="strictly increasing"):
         trend_cube(ds.isel(time=[0, 2, 1, 3, 4, 5, 6, 7, 8, 9]))
+
+
+@pytest.mark.parametrize("keeps", ["coordinate", "attributes"])
+def test_crs_carried_from_unmixing_in_memory_to_trends_and_their_files(keeps, tmp_path):
+    # A cube keeps its CRS in a grid-mapping coordinate or only as attributes (both CF / GDAL practice);
+    # fractions unmixed in memory and their trends carry it, and the trends' GeoTIFF says the same CRS
+    # and transform (read back by rasterio, which parses the GeoTIFF keys independently).
+    import rasterio
+    import rasterio.crs
+
+    from unmix.cube import unmix_cube
+    from unmix.io.products.cog import write_cog
+
+    ds = _cube(n_dates=12, ny=6, nx=6)
+    wkt = ds.spatial_ref.attrs["crs_wkt"]
+    transform = (30.0, 0.0, 500000.0, 0.0, -30.0, 4100000.0)
+    rng = np.random.default_rng(1)
+    M = np.array([[0.05, 0.08, 0.30, 0.40], [0.20, 0.25, 0.30, 0.35]])
+    cube = xr.DataArray((rng.random((12, 4, 6, 6)) * 0.3).astype(np.float32), dims=("time", "band", "y", "x"),
+                        coords={"time": ds.time.values, "band": list("abcd"), "y": ds.y.values, "x": ds.x.values})
+    if keeps == "coordinate":
+        cube = cube.assign_coords(spatial_ref=ds.spatial_ref)
+    else:
+        cube.attrs.update(crs_wkt=wkt, transform=transform)
+    trends = trend_cube(unmix_cube(cube, M, names=EMS))
+    with rasterio.open(write_cog(trends.slope.isel(endmember=0), tmp_path / "slope.tif")) as src:
+        assert src.crs == rasterio.crs.CRS.from_wkt(wkt)
+        np.testing.assert_allclose(tuple(src.transform)[:6], transform)

@@ -22,6 +22,7 @@ import xarray as xr
 
 from ..errors import BandMismatchError, InputError, ShapeError
 from ..solvers import Constraint, check_endmembers, estimate_fractions
+from .georef import georef_of
 from .plausible import DEFAULT_VALID_RANGE, check_valid_range, implausible_counts, screen_block
 
 __all__ = ["unmix_cube"]
@@ -272,11 +273,16 @@ def _finish(cube: xr.DataArray, fractions: xr.DataArray, rmse: xr.DataArray, val
         coords={"endmember": list(names), **({"band": band_labels} if band_labels is not None else {})},
         attrs={"long_name": "endmember reflectance spectra used", "units": "1"},
     )
-    georef = {k: cube.attrs[k] for k in ("crs_wkt", "transform") if k in cube.attrs}
+    # the cube's CRS and transform, wherever it keeps them (grid-mapping coordinate or attributes), as
+    # attributes of every gridded variable; the grid-mapping coordinate itself is carried with its attributes
+    wkt, transform = georef_of(cube)
+    georef = {k: v for k, v in (("crs_wkt", wkt), ("transform", transform)) if v is not None}
     for da_ in (fractions, rmse, valid_count):
         da_.attrs.update(georef)
 
     ds = xr.Dataset({"fractions": fractions, "rmse": rmse, "valid_count": valid_count, "endmember_spectra": spectra})
+    if "spatial_ref" in cube.coords:
+        ds = ds.assign_coords(spatial_ref=cube.coords["spatial_ref"])
     ds.attrs = {
         "method": "linear spectral unmixing by least squares"
         + (" (fully constrained: non-negative, sum to one)" if con is Constraint.FCLS else f" ({con.value})"),

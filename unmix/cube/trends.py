@@ -56,6 +56,7 @@ from ..trajectory import Rule, check_rule_names, effect_sizes, label_trajectorie
 from ..trajectory.labels import _check_thresholds
 from ..trend import DEFAULT_CORRECTION, MannKendallCorrection, fdr
 from ._trend_outputs import _add_rules, _annotate
+from .georef import georef_of
 from .seasons import SeasonScheme, _season_scheme, season_labels
 
 __all__ = ["SeasonScheme", "trend_cube", "season_labels", "TREND_VARIABLES"]
@@ -333,6 +334,13 @@ def trend_cube(
     coords = {k: v for k, v in fr.coords.items() if k != "time" and "time" not in v.dims}
     if "spatial_ref" in ds_in.coords:
         coords["spatial_ref"] = ds_in.coords["spatial_ref"]
+    # the CRS and transform as attributes too, wherever the fractions keep them (a product read back has the
+    # grid-mapping coordinate; unmix_cube's result in memory may carry attributes only)
+    wkt, transform = georef_of(ds_in)
+    georef = {k: v for k, v in (("crs_wkt", wkt), ("transform", transform)) if v is not None}
+    for var in data_vars.values():
+        if var.dims[-2:] == ("y", "x"):
+            var.attrs.update(georef)
     result = xr.Dataset(data_vars, coords=coords)
 
     if rules:
