@@ -15,6 +15,11 @@ Fixtures
     Write one GeoTIFF with rasterio (a helper for tests that need odd files).
 ``make_library(names=None, resampled=True) -> Path``
     A library CSV of ``ENDMEMBERS`` in the documented format (resampled: a ``band`` column).
+
+Helpers
+-------
+``spy_chunk_reads(cube) -> (spied cube, list of chunk shapes read)``
+    A dask-backed cube whose every chunk computation is recorded, to count what a function reads.
 """
 
 from __future__ import annotations
@@ -47,6 +52,18 @@ BAND_CENTRES_NM = (482.5, 562.5, 655.0, 865.0, 1610.0, 2200.0)
 DEFAULT_DATES = ("2019-03-01", "2019-07-15", "2020-03-01", "2020-07-15")
 CRS = "EPSG:32633"
 NODATA = -9999
+
+
+def spy_chunk_reads(cube):
+    """The dask-backed ``cube`` with every computed chunk recorded: (spied cube, list of the chunks' shapes)."""
+    calls = []
+
+    def spy(block):
+        if block.size:  # not dask's call on an empty block to learn the output type
+            calls.append(block.shape)
+        return block
+
+    return cube.copy(data=cube.data.map_blocks(spy, dtype=cube.dtype)), calls
 
 
 @dataclass

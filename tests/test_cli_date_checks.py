@@ -7,6 +7,8 @@ with scipy.ndimage.shift, one date's band is scaled by a known gain, one date li
 
 from __future__ import annotations
 
+import dataclasses
+
 import netCDF4
 import numpy as np
 import pandas as pd
@@ -14,8 +16,8 @@ import pytest
 from conftest import BANDS, ENDMEMBERS, NODATA
 from scipy import ndimage
 
-from unmix.cli._comparability import ComparabilityWarning
 from unmix.cli.main import main
+from unmix.errors import ComparabilityWarning
 
 DATES = [f"{y}-09-{d:02d}" for y, d in zip(range(2010, 2019), (3, 10, 5, 12, 1, 8, 4, 11, 6))] + ["2014-02-15"]
 SHIFTED, BRIGHT, OFF_SEASON = "2013-09-12", "2016-09-04", "2014-02-15"
@@ -113,7 +115,19 @@ def test_checks_can_be_turned_off(textured_stack, make_library, tmp_path, capsys
     assert code == 0, captured.err
     ledger = pd.read_csv(out / "dates.csv", keep_default_na=False)
     assert ledger["used"].astype(bool).all() and "shift_y" not in ledger and "gain_B5" not in ledger
-    assert "co-registration: not checked" in captured.err + captured.out
+    # the cube layer's words, and the option that acts on the condition added where the command prints it
+    assert "co-registration: not checked (turned off) [--no-registration-check]" in captured.err + captured.out
+
+
+def test_option_hints_name_options_of_both_commands():
+    from unmix.cli._comparability import OPTION_OF
+    from unmix.cli.fractions import fractions
+    from unmix.cli.survey import survey
+    from unmix.cube.date_checks import CheckSettings
+
+    assert set(OPTION_OF) <= {f.name for f in dataclasses.fields(CheckSettings)}
+    for command in (fractions, survey):
+        assert set(OPTION_OF.values()) <= {o for p in command.params for o in p.opts}
 
 
 def test_survey_prints_the_ledger_without_unmixing(textured_stack, tmp_path, capsys):

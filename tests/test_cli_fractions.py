@@ -141,7 +141,7 @@ def test_date_on_another_grid(make_stack, make_library, write_geotiff, tmp_path,
     assert_clean_failure(code, err, out_dir, "scene_2021-01-01.tif", expect, "--align")
     # --align warps it instead; the warped date is a flat image (no ground texture), so its shift cannot be
     # measured: it is flagged by name, never passed as measured
-    from unmix.cli._comparability import ComparabilityWarning
+    from unmix.errors import ComparabilityWarning
 
     with pytest.warns(ComparabilityWarning, match="2021-01-01"):
         code, out, err = run(base_args(info, make_library(), out_dir) + ["--align"], capsys)

@@ -8,6 +8,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import xarray as xr
+from conftest import spy_chunk_reads
 from scipy import ndimage
 
 from unmix.cube.comparability import (
@@ -76,14 +77,7 @@ def test_failed_date_is_flagged_with_reason():
 
 def test_registration_reads_only_the_blocks():
     cube = _cube(640, shifts=SHIFTS[:2], chunk=64)  # 10 x 10 chunks per date and band
-    calls = []
-
-    def spy(block):
-        if block.size:  # not dask's call on an empty block to learn the output type
-            calls.append(block.shape)
-        return block
-
-    spied = cube.copy(data=cube.data.map_blocks(spy, dtype=cube.dtype))
+    spied, calls = spy_chunk_reads(cube)
     with dask.config.set(scheduler="synchronous"):
         measure_registration(spied, band="B5", reference="2021-01-01", n_blocks=9, block=48, upsample=10)
     # 9 blocks of 48 px (raised to 64), each moved inside one chunk of 64 px: 9 chunks on each of 2 dates of the 200
@@ -136,10 +130,10 @@ def test_radiometry_on_cube_recovers_gain_offset_and_normalises():
 
 
 def test_scene_sample_equals_numpy_indexing():
-    from unmix.cube.comparability import _sample_scene
+    from unmix.cube.radiometry import sample_scene
 
     cube = _cube(96, shifts=SHIFTS[:2], chunk=40)
-    values = _sample_scene(cube, 500, seed=7)
+    values = sample_scene(cube, 500, seed=7)
     flat = np.sort(np.random.default_rng(7).choice(96 * 96, size=500, replace=False))
     # the same pixels picked by numpy fancy indexing on the computed cube
     expected = cube.values[:, :, flat // 96, flat % 96].transpose(0, 2, 1)

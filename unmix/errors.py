@@ -30,6 +30,7 @@ __all__ = [
     "BrowserError",
     "UnmixWarning",
     "CollinearityWarning",
+    "ComparabilityWarning",
     "WindowWarning",
     "EmptyWindowYearWarning",
     "WindowSpreadWarning",
@@ -128,6 +129,16 @@ class UnmixWarning(UserWarning):
 
 class CollinearityWarning(UnmixWarning):
     """Two endmembers are so alike that their fractions are poorly determined."""
+
+
+class ComparabilityWarning(UnmixWarning):
+    """A date is shifted more than a fifth of a pixel, its shift could not be measured, or its radiometry
+    departs from its reference date (dates named). ``settings`` names the date-check settings (fields of
+    :class:`unmix.cube.date_checks.CheckSettings`) that act on such dates."""
+
+    def __init__(self, message: str = "", settings: tuple[str, ...] = ()):
+        super().__init__(message)
+        self.settings = tuple(settings)
 
 
 class ImplausibleReflectanceWarning(UnmixWarning):

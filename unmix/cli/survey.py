@@ -14,7 +14,7 @@ from typing import Any
 import click
 
 from ._common import claim_products, echo_summary, overwrite_option, writes_products
-from ._comparability import check_dates, comparability_options, settings_from
+from ._comparability import comparability_options, run_date_checks, settings_from
 from ._inputs import archive_options, expand_paths, open_input, stack_options
 
 __all__ = ["survey", "format_ledger"]
@@ -60,7 +60,7 @@ def survey(ctx: click.Context, stack: tuple[str, ...], ledger_csv: Path | None, 
     else:
         settings = settings_from(options)
         cube, _, _ = open_input(paths, options)
-        _, ledger, lines = check_dates(cube, settings)
+        _, ledger, lines = run_date_checks(cube, settings)
         source = f"{cube.sizes['time']} dates of {', '.join(map(str, stack))} (nothing unmixed)"
     click.echo(format_ledger(ledger))
     used = int(ledger["used"].values.sum())

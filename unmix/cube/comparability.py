@@ -2,7 +2,8 @@
 
 Maps the kernels of :mod:`unmix.comparability` over a (time, band, y, x) cube. Measuring reads only
 what it needs: a few blocks (of the registration bands, or of every band when the radiometric sample is
-drawn from them too), one task per date, and a fixed sample of pixels for the radiometry. Corrections
+drawn from them too), one task per date, and a fixed sample of pixels for the radiometry
+(:mod:`unmix.cube.radiometry` fits it, within each sensor of a record that switches sensor). Corrections
 stay lazy. No paths, no printing.
 
 References
@@ -13,8 +14,6 @@ Canty, M. J. and Nielsen, A. A. (2008). doi:10.1016/j.rse.2007.07.013
 """
 
 from __future__ import annotations
-
-import functools
 
 import dask
 import dask.array as da
@@ -34,22 +33,13 @@ from unmix.comparability import (
     block_windows,
     combine_block_shifts,
     field_shift,
-    fit_date,
     valid_pixels,
 )
 from unmix.cube.corrections import correct_registration, normalise_cube
+from unmix.cube.radiometry import MIN_INVARIANT, SAMPLE, fit_sample, one_blas_thread, sample_scene, window_picks
+from unmix.cube.radiometry import date_label as _date_label
 from unmix.errors import UnknownNameError
 
-#: Pixels sampled for the radiometric fit. The fit itself needs far fewer (IR-MAD's 12 x 12 covariance
-#: for six bands, whose entries n pixels give to a relative standard error near sqrt(2 / n); Anderson 2003,
-#: from memory), but only about 0.5 % of a related pair of dates pass the 0.95 no-change level (measured on
-#: benchmarks/bench_comparability.py): 20 000 keep about 100 invariant pixels, 10 000 only about 50, the
-#: least the default fit asked for.
-SAMPLE = 20000
-#: Fewest invariant pixels a date's fit accepts: each band's orthogonal regression has two parameters, and
-#: 25 pixels keep a small scene (100 x 100 px) measurable; the gain's standard error in the ledger says
-#: how well it is known (a choice of this package).
-MIN_INVARIANT = 25
 #: Registration blocks by default: 4 of 256 px (a 2 x 2 layout). Each block costs the decoding of the
 #: tile it lies in on every date, plus its gradient fields; 4 blocks keep measuring within 15 % of
 #: unmixing (benchmarks/bench_comparability.py), still give a median and a spread, and the 3 needed
@@ -58,11 +48,6 @@ N_BLOCKS = 4
 
 __all__ = ["reference_date", "block_layout", "measure_registration", "measure_radiometry", "measure_comparability",
            "registration_verdict", "correct_registration", "normalise_cube"]
-
-
-def _date_label(value) -> str:
-    return str(np.datetime_as_string(np.datetime64(value, "D"))) if np.issubdtype(
-        np.asarray(value).dtype, np.datetime64) else str(value)
 
 
 def reference_date(cube: xr.DataArray, preferred=None):
@@ -163,20 +148,17 @@ def _measure_dates(cube, windows, i_ref, *, bands, picks, settings):
     fields and the dates in flight."""
     data = cube.transpose("time", "band", "y", "x").data
     take = [(slice(None), wy, wx) for wy, wx in windows]
-    ref_fields = dask.delayed(_fields)([data[(i_ref, *w)] for w in take], bands, settings["block"]["sigma"])
-    tasks = [dask.delayed(_date_task)(None if t == i_ref else ref_fields, [data[(t, *w)] for w in take],
+    # the reference's blocks as one delayed object, shared by its fields and its own date's task: handed to
+    # both as arrays, dask read the reference's chunks twice when the cube was not sliced before (every band
+    # measured; counted in tests/test_cube_radiometry.py)
+    ref_blocks = dask.delayed(list)([data[(i_ref, *w)] for w in take])
+    ref_fields = dask.delayed(_fields)(ref_blocks, bands, settings["block"]["sigma"])
+    tasks = [dask.delayed(_date_task)(None if t == i_ref else ref_fields,
+                                      ref_blocks if t == i_ref else [data[(t, *w)] for w in take],
                                       bands=bands, picks=picks, settings=settings)
              for t in range(cube.sizes["time"])]
-    with _one_blas_thread():
+    with one_blas_thread():
         return dask.compute(*tasks)
-
-
-def _one_blas_thread():
-    """BLAS on one thread while measuring: the dates already run in parallel, and the small matrix products
-    of the peak refinement waited tens of milliseconds for a BLAS thread on a loaded machine (0.5 ms alone)."""
-    from threadpoolctl import threadpool_limits
-
-    return threadpool_limits(limits=1, user_api="blas")
 
 
 def _registration_settings(upsample, min_valid, min_blocks, sigma, min_peak_ratio, max_peak_sd, max_spread) -> dict:
@@ -280,104 +262,51 @@ def registration_verdict(shifts: xr.Dataset, *, warn: float = WARN_SHIFT, max_sh
                         attrs={"warn": warn, "max_shift": max_shift, "units_of_levels": "pixel"})
 
 
-def _pick(block: np.ndarray, *, rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
-    return block[:, :, rows, cols]
-
-
-def _sample_scene(cube: xr.DataArray, sample: int, seed: int) -> np.ndarray:
-    """A fixed random sample of pixels over the whole scene, (time, pixel, band); each read task keeps
-    only its sampled pixels, so memory is bounded by the chunks in flight."""
-    data = cube.transpose("time", "band", "y", "x").data
-    data = data if isinstance(data, da.Array) else da.from_array(data, chunks=(1, -1, -1, -1))
-    ny, nx = data.shape[2:]
-    flat = np.sort(np.random.default_rng(seed).choice(ny * nx, size=min(sample, ny * nx), replace=False))
-    rows, cols = flat // nx, flat % nx
-    ye, xe = np.concatenate([[0], np.cumsum(data.chunks[2])]), np.concatenate([[0], np.cumsum(data.chunks[3])])
-    parts, order = [], []
-    for y0, y1 in zip(ye[:-1], ye[1:]):
-        for x0, x1 in zip(xe[:-1], xe[1:]):
-            sel = np.flatnonzero((rows >= y0) & (rows < y1) & (cols >= x0) & (cols < x1))
-            if sel.size == 0:
-                continue
-            func = functools.partial(_pick, rows=rows[sel] - y0, cols=cols[sel] - x0)
-            sub = data[:, :, y0:y1, x0:x1]
-            parts.append(sub.map_blocks(func, drop_axis=3, chunks=sub.chunks[:2] + ((sel.size,),), dtype=data.dtype))
-            order.append(sel)
-    values = np.empty(data.shape[:2] + (rows.size,), dtype=np.float64)
-    values[:, :, np.concatenate(order)] = da.concatenate(parts, axis=2).compute()
-    return values.transpose(0, 2, 1)
-
-
-def _window_picks(windows, sample: int, seed: int) -> list[np.ndarray]:
-    """A fixed random sample of ``sample`` pixels of the windows: flat pixel indices per window."""
-    sizes = [(wy.stop - wy.start) * (wx.stop - wx.start) for wy, wx in windows]
-    total = int(sum(sizes))
-    keep = np.sort(np.random.default_rng(seed).choice(total, size=min(sample, total), replace=False))
-    starts = np.concatenate([[0], np.cumsum(sizes)])
-    return [keep[(keep >= a) & (keep < b)] - a for a, b in zip(starts[:-1], starts[1:])]
-
-
-def _radiometry(cube, values, i_ref, ref, *, seed, threshold, min_pixels, min_r2, gain_tolerance) -> xr.Dataset:
-    n_t, n_b = cube.sizes["time"], cube.sizes["band"]
-    names = [str(b) for b in cube["band"].values]
-    fields = {k: np.full((n_t, n_b), np.nan) for k in ("gain", "offset", "gain_se", "offset_se", "r2")}
-    n = np.zeros(n_t, dtype=np.int64)
-    flag = np.full(n_t, "", dtype=object)
-    fields["gain"][i_ref], fields["offset"][i_ref] = 1.0, 0.0
-    fields["gain_se"][i_ref] = fields["offset_se"][i_ref] = 0.0
-    fields["r2"][i_ref] = 1.0
-    n[i_ref] = int(np.isfinite(values[i_ref]).all(axis=1).sum())
-    others = [t for t in range(n_t) if t != i_ref]
-    fit_one = functools.partial(fit_date, threshold=threshold, min_pixels=min_pixels, min_r2=min_r2,
-                                gain_tolerance=gain_tolerance, band_names=names)
-    with _one_blas_thread():
-        fitted = dask.compute(*[dask.delayed(fit_one)(values[t], values[i_ref]) for t in others])
-    for t, fit in zip(others, fitted):
-        for k in fields:
-            fields[k][t] = getattr(fit, k)
-        n[t], flag[t] = fit.n, fit.flag
-    dims = ("time", "band")
-    data = {k: (dims, v) for k, v in fields.items()}
-    data["n"] = ("time", n, {"long_name": "pseudo-invariant pixels fitted"})
-    data["flag"] = ("time", flag.astype(str), {"long_name": "why the fit is doubtful ('' if fine)"})
-    return xr.Dataset(data, coords={"time": cube["time"].values, "band": cube["band"].values},
-                      attrs={"method": "IR-MAD invariant pixels + orthogonal regression (Canty & Nielsen 2008)",
-                             "reference": _date_label(ref), "sample": int(values.shape[1]), "seed": seed,
-                             "threshold": threshold, "min_r2": min_r2, "gain_tolerance": gain_tolerance})
-
-
-def measure_radiometry(cube: xr.DataArray, *, reference, sample: int = SAMPLE, seed: int = 0,
+def measure_radiometry(cube: xr.DataArray, *, reference, by: str | None = None, sample: int = SAMPLE, seed: int = 0,
                        threshold: float = 0.95, min_pixels: int = MIN_INVARIANT, min_r2: float = MIN_R2,
                        gain_tolerance: float = GAIN_TOLERANCE) -> xr.Dataset:
-    """Gain and offset per date and band that map the date onto ``reference`` (pseudo-invariant pixels).
+    """Gain and offset per date and band that map the date onto a reference date (pseudo-invariant pixels).
 
     A fixed random sample of ``sample`` pixels over the scene (the same on every date, ``seed``) is read;
-    for each date the pixels valid on it and on the reference enter IR-MAD, those whose no-change
+    for each date the pixels valid on it and on its reference enter IR-MAD, those whose no-change
     probability exceeds ``threshold`` are fitted per band by orthogonal regression
     (:func:`unmix.comparability.fit_date`). :func:`measure_comparability` draws the sample from the
     registration blocks instead, reading the stack once for both.
+
+    Parameters
+    ----------
+    cube : (time, band, y, x) DataArray
+    reference : date or None
+        Reference date (see :func:`reference_date`; None: the date with most valid pixels).
+    by : str, optional
+        Time coordinate grouping the dates (e.g. ``"sensor"``): each group is fitted within itself, the
+        reference's group against ``reference``, every other group against its date with most sampled
+        pixels valid in every band (:func:`unmix.cube.radiometry.fit_sample`). None: one group.
+    sample, seed, threshold, min_pixels, min_r2, gain_tolerance
+        The sample and the fit's settings.
 
     Returns
     -------
     Dataset
         On (time, band): ``gain``, ``offset``, ``gain_se``, ``offset_se``, ``r2``; on time: ``n``
-        (invariant pixels) and ``flag`` ('' when fine, else the reason: poor fit, gain far from 1, too
-        few pixels). The reference date has gain 1 and offset 0.
+        (invariant pixels), ``flag`` ('' when fine, else the reason: poor fit, gain far from 1, too
+        few pixels) and ``reference`` (the date fitted against). A reference date has gain 1 and offset 0.
 
     References
     ----------
     Canty, M. J. and Nielsen, A. A. (2008). doi:10.1016/j.rse.2007.07.013
     """
     ref = reference_date(cube, reference)
-    values = _sample_scene(cube, sample, seed)
+    values = sample_scene(cube, sample, seed)
     i_ref = int(np.flatnonzero(cube["time"].values == ref)[0])
-    return _radiometry(cube, values, i_ref, ref, seed=seed, threshold=threshold, min_pixels=min_pixels,
-                       min_r2=min_r2, gain_tolerance=gain_tolerance)
+    return fit_sample(cube, values, i_ref, by=by, seed=seed, threshold=threshold, min_pixels=min_pixels,
+                      min_r2=min_r2, gain_tolerance=gain_tolerance)
 
 
-def measure_comparability(cube: xr.DataArray, *, band, reference, n_blocks: int = N_BLOCKS, block: int = 256,
-                          upsample: int = 20, min_valid: float = 0.5, min_blocks: int = 3, sample: int = SAMPLE,
-                          seed: int = 0, threshold: float = 0.95, min_pixels: int = MIN_INVARIANT, min_r2: float = MIN_R2,
+def measure_comparability(cube: xr.DataArray, *, band, reference, by: str | None = None, n_blocks: int = N_BLOCKS,
+                          block: int = 256, upsample: int = 20, min_valid: float = 0.5, min_blocks: int = 3,
+                          sample: int = SAMPLE, seed: int = 0, threshold: float = 0.95,
+                          min_pixels: int = MIN_INVARIANT, min_r2: float = MIN_R2,
                           gain_tolerance: float = GAIN_TOLERANCE, sigma: float = SIGMA,
                           min_peak_ratio: float = MIN_PEAK_RATIO, max_peak_sd: float = MAX_PEAK_SD,
                           max_spread: float = MAX_SPREAD) -> tuple[xr.Dataset, xr.Dataset]:
@@ -386,7 +315,16 @@ def measure_comparability(cube: xr.DataArray, *, band, reference, n_blocks: int 
     As :func:`measure_registration` and :func:`measure_radiometry`, but the radiometric sample is a fixed
     random sample of the pixels of the registration blocks, taken by the same per-date task that measures
     the shift: the stack is read once, only where the blocks lie, and memory holds the reference's blocks,
-    the dates in flight and the sample. Returns ``(shifts, fits)``.
+    the dates in flight and the sample. Every date's shift is measured against ``reference``; with ``by``
+    (e.g. ``"sensor"``) the radiometry is fitted within each group of dates, from the same sample: the
+    reference's group against ``reference``, every other group against its date with most sampled pixels
+    valid in every band (:func:`unmix.cube.radiometry.fit_sample`). Returns ``(shifts, fits)``.
+
+    References
+    ----------
+    Guizar-Sicairos, M., Thurman, S. T. and Fienup, J. R. (2008). doi:10.1364/OL.33.000156
+    Argyriou, V. and Vlachos, T. (2003). doi:10.1049/el:20030666
+    Canty, M. J. and Nielsen, A. A. (2008). doi:10.1016/j.rse.2007.07.013
     """
     idx = _band_indices(cube, band)
     ref = reference_date(cube, reference)
@@ -394,12 +332,12 @@ def measure_comparability(cube: xr.DataArray, *, band, reference, n_blocks: int 
     windows = block_layout(cube, n_blocks, block)
     settings = _registration_settings(upsample, min_valid, min_blocks, sigma, min_peak_ratio, max_peak_sd,
                                       max_spread)
-    results = _measure_dates(cube, windows, i_ref, bands=idx, picks=_window_picks(windows, sample, seed),
+    results = _measure_dates(cube, windows, i_ref, bands=idx, picks=window_picks(windows, sample, seed),
                              settings=settings)
     shifts = _shift_dataset(cube["time"].values, results, i_ref, block=block, n_windows=len(windows),
                             band_names=[str(cube["band"].values[k]) for k in idx], settings=settings, ref=ref)
     values = np.stack([smp for _, _, smp in results]).astype(np.float64).transpose(0, 2, 1)  # (time, pixel, band)
-    fits = _radiometry(cube, values, i_ref, ref, seed=seed, threshold=threshold, min_pixels=min_pixels,
-                       min_r2=min_r2, gain_tolerance=gain_tolerance)
+    fits = fit_sample(cube, values, i_ref, by=by, seed=seed, threshold=threshold, min_pixels=min_pixels,
+                      min_r2=min_r2, gain_tolerance=gain_tolerance)
     fits.attrs["sampled_from"] = "registration blocks"
     return shifts, fits

@@ -1,0 +1,117 @@
+"""Radiometry within each sensor of a record, from the one read of the registration blocks (unmix.cube.radiometry).
+
+The record is a textured ground (smoothed noise per band) seen by two invented sensors on three dates each:
+the second sensor's bands read the ground with other gains and offsets (sensors differ by design), and one
+of its dates has one band scaled by a known gain of 1.1.
+"""
+
+from __future__ import annotations
+
+import dask
+import dask.array as da
+import numpy as np
+import pandas as pd
+import pytest
+import xarray as xr
+from conftest import spy_chunk_reads
+from scipy import ndimage
+
+from unmix.cube.comparability import measure_comparability, measure_registration
+from unmix.cube.radiometry import date_groups, fit_sample
+from unmix.errors import InputError
+
+SENSORS = ["tm-like"] * 3 + ["oli-like"] * 3
+TIMES = pd.date_range("2015-01-01", periods=6, freq="YS")
+BRIGHT, BAND = 5, "B4"  # the date and band scaled by 1.1
+REFERENCE = "2016-01-01"  # the user's reference (a tm-like date)
+SETTINGS = dict(n_blocks=4, block=64, upsample=20, sample=6000)
+
+
+def _record(size=192, chunk=64, seed=2):
+    rng = np.random.default_rng(seed)
+    ground = ndimage.gaussian_filter(rng.random((3, size, size)), (0, 1.5, 1.5)) * 0.5 + 0.05
+    arr = np.empty((6, 3, size, size))
+    for t, sensor in enumerate(SENSORS):
+        seen = ground if sensor == "tm-like" else ground * np.array([0.9, 1.15, 1.05])[:, None, None] + 0.01
+        arr[t] = seen + rng.normal(0, 0.001, seen.shape)
+    arr[BRIGHT, 1] *= 1.1
+    arr[3, :, :8, :] = np.nan  # a few rows missing on the first oli-like date: the fourth has more valid pixels
+    data = da.from_array(arr.astype(np.float32), chunks=(1, 3, chunk, chunk))
+    return xr.DataArray(data, dims=("time", "band", "y", "x"),
+                        coords={"time": TIMES, "band": ["B3", BAND, "B5"], "sensor": ("time", SENSORS)})
+
+
+@pytest.fixture(scope="module")
+def record():
+    return _record()
+
+
+@pytest.fixture(scope="module")
+def measured(record):
+    return measure_comparability(record, band=None, reference=REFERENCE, by="sensor", **SETTINGS)
+
+
+def test_each_sensor_is_fitted_against_a_date_of_its_own(record, measured):
+    _, fits = measured
+    refs = pd.to_datetime(fits["reference"].values)
+    sensor_of = dict(zip(TIMES, SENSORS))
+    assert [sensor_of[r] for r in refs] == SENSORS
+    # the user's reference serves its own sensor; the other sensor's date with most valid pixels (the first
+    # oli-like date lacks 8 rows, counted by hand) serves the other
+    assert list(fits["reference"].values) == [REFERENCE] * 3 + ["2019-01-01"] * 3
+    assert fits.attrs["grouped_by"] == "sensor" and fits.attrs["reference"] == REFERENCE
+    # every date fitted cleanly except the bright one
+    flags = [str(f) for f in fits["flag"].values]
+    assert [bool(f) for f in flags] == [t == BRIGHT for t in range(6)], flags
+
+
+def test_known_gain_is_recovered_within_its_sensor(measured):
+    _, fits = measured
+    # one band of one date scaled by 1.1 (a synthetic known gain); the fit maps the date onto its reference
+    # (reference = gain x date + offset), so the gain is 1 / 1.1; Canty & Nielsen (2008)'s method, 1 % target
+    bright = fits.isel(time=BRIGHT)
+    assert float(bright.gain.sel(band=BAND)) == pytest.approx(1 / 1.1, rel=0.01)
+    assert float(bright.offset.sel(band=BAND)) == pytest.approx(0.0, abs=0.005)
+    np.testing.assert_allclose(bright.gain.sel(band=["B3", "B5"]), 1.0, rtol=0.01)
+    # every other date of either sensor: gain 1 within 1 %, as generated (only the sensors' bands differ)
+    others = fits.drop_isel(time=BRIGHT)
+    np.testing.assert_allclose(others.gain, 1.0, rtol=0.01)
+    assert "gain departs" in str(bright.flag.values)
+
+
+def test_one_read_equals_separate_measures_of_each_sensor(record, measured):
+    shifts, fits = measured
+    # the shifts: the registration alone over every date (the same blocks and kernel)
+    alone = measure_registration(record, band=None, reference=REFERENCE, n_blocks=4, block=64, upsample=20)
+    np.testing.assert_array_equal(shifts.shift_y.values, alone.shift_y.values)
+    np.testing.assert_array_equal(shifts.shift_x.values, alone.shift_x.values)
+    # the radiometry: each sensor's dates measured on their own against the same reference date draw the
+    # same blocks and the same sampled pixels, so they must give the same fits
+    for sensor, ref in (("tm-like", REFERENCE), ("oli-like", "2019-01-01")):
+        part = record.isel(time=np.flatnonzero(np.array(SENSORS) == sensor))
+        _, own = measure_comparability(part, band=None, reference=ref, **SETTINGS)
+        for k in ("gain", "offset", "r2", "n"):
+            np.testing.assert_allclose(fits[k].sel(time=part.time).values, own[k].values, rtol=1e-9)
+
+
+def test_the_blocks_are_read_once_for_both_measures(record):
+    spied, calls = spy_chunk_reads(record)
+    with dask.config.set(scheduler="synchronous"):
+        measure_comparability(spied, band="B5", reference=REFERENCE, by="sensor", **SETTINGS)
+    # 4 blocks of 64 px, each inside one chunk of 64 px: 4 chunks on each of the 6 dates, once (dask's own
+    # count of the cube's chunks: 9 per date); a second read for the radiometry would add chunks
+    assert len(calls) == 4 * 6
+    assert spied.data.npartitions == 9 * 6
+
+
+def test_a_date_alone_in_its_group_is_flagged_not_fitted(record):
+    values = np.random.default_rng(0).random((6, 500, 3))
+    labels = record.assign_coords(sensor=("time", ["a"] * 5 + ["b"]))
+    fits = fit_sample(labels, values, 0, by="sensor", min_pixels=10)
+    assert "only date of its sensor" in str(fits.flag.values[5]) and np.isnan(fits.gain.values[5]).all()
+    assert fits["reference"].values[5] == ""
+
+
+def test_unknown_group_coordinate_names_the_known_ones(record):
+    with pytest.raises(InputError, match=r"'platform'.*sensor"):
+        date_groups(record, "platform")
