@@ -115,3 +115,27 @@ def test_a_date_alone_in_its_group_is_flagged_not_fitted(record):
 def test_unknown_group_coordinate_names_the_known_ones(record):
     with pytest.raises(InputError, match=r"'platform'.*sensor"):
         date_groups(record, "platform")
+
+
+@pytest.mark.parametrize("memory, reads", [(1 << 30, 1), (0, 2)])
+def test_reference_from_the_blocks_read_once_within_the_memory_allowed(record, memory, reads):
+    # No reference given: the date with most valid pixel-bands inside the measured blocks, counted here by
+    # hand with numpy on the same windows; the blocks are kept while it is chosen when they fit in
+    # ``memory`` (read once), else counted and read again (twice)
+    from unmix.cube.comparability import block_layout
+
+    gappy = record.copy(data=record.data.copy())
+    gappy[:, :, 40:60, :] = np.nan  # rows through the first blocks, more on some dates than others
+    gappy[4, :, 40:80, :] = np.nan
+    gappy[1, :, 50:60, 100:] = np.nan
+    gappy[0, :, 40:60, :30] = 0.2  # the first date fills part of the gap: the most valid date
+    windows = block_layout(gappy, SETTINGS["n_blocks"], SETTINGS["block"])
+    values = gappy.values
+    by_hand = [sum(int(np.isfinite(values[t][:, wy, wx]).sum()) for wy, wx in windows) for t in range(6)]
+    spied, calls = spy_chunk_reads(gappy)
+    with dask.config.set(scheduler="synchronous"):
+        shifts, fits = measure_comparability(spied, band=None, reference=None, memory=memory, **SETTINGS)
+    assert shifts.attrs["reference_index"] == int(np.argmax(by_hand)) == 0
+    assert shifts.attrs["reference"] == "2015-01-01" and fits.attrs["reference_index"] == 0
+    assert shifts.shift_y.values[0] == 0 and fits.gain.values[0].tolist() == [1.0, 1.0, 1.0]
+    assert len(calls) == reads * 4 * 6  # 4 blocks, each inside one chunk, on 6 dates

@@ -58,8 +58,8 @@ class Account:
         return day(self.times[i])
 
 
-def reference_verdict(rec: Account, ref, fits, settings: CheckSettings, sub: xr.DataArray) -> None:
-    text = f"reference date: {day(ref)}" + (" (most valid pixels)" if settings.reference is None else "")
+def reference_verdict(rec: Account, ref, fits, settings: CheckSettings, sub: xr.DataArray, choice: str = "") -> None:
+    text = f"reference date: {day(ref)}" + (f" ({choice or 'most valid pixels'})" if settings.reference is None else "")
     if fits is not None and fits.attrs.get("grouped_by"):
         sensors = np.asarray(sub["sensor"].values).astype(str)
         refs = {s: r for s, r in zip(sensors, fits["reference"].values) if r}

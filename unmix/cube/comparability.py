@@ -46,13 +46,21 @@ from unmix.errors import UnknownNameError
 #: (``min_blocks``) leave one block to a cloud or to featureless ground.
 N_BLOCKS = 4
 
+#: Most memory [bytes] the measuring blocks of every date may take when the reference date is chosen from
+#: them (no reference given): up to this, the blocks are read once, kept while the date with most valid
+#: pixels is found, and measured from memory; beyond it they are read twice (counted, then measured),
+#: so memory stays bounded. 1 GiB holds the 4 blocks of 256 px x 6 bands of 160 dates (a choice of this
+#: package).
+BLOCK_MEMORY = 1 << 30
+
 __all__ = ["reference_date", "block_layout", "measure_registration", "measure_radiometry", "measure_comparability",
            "registration_verdict", "correct_registration", "normalise_cube"]
 
 
 def reference_date(cube: xr.DataArray, preferred=None):
     """The reference date: ``preferred`` if given (it must be a date of the cube), else the date with most
-    valid pixel-bands (a small lazy reduction over the cube).
+    valid pixel-bands over the whole cube (a lazy reduction that reads every chunk; the measures below
+    choose from the blocks they read instead, see :func:`measure_comparability`).
 
     Raises
     ------
@@ -142,21 +150,44 @@ def _date_task(ref_fields, blocks, *, bands, picks, settings):
     return found, valid, sample
 
 
-def _measure_dates(cube, windows, i_ref, *, bands, picks, settings):
-    """The per-date tasks over the blocks, computed together: each date's blocks are read by its own task,
-    the reference's once (its fields transformed once for all dates), so memory holds the reference's
-    fields and the dates in flight."""
+def _block_reads(cube: xr.DataArray, windows) -> list:
+    """One delayed list of (band, y, x) blocks per date: the windows of every band of ``cube``."""
     data = cube.transpose("time", "band", "y", "x").data
     take = [(slice(None), wy, wx) for wy, wx in windows]
-    # the reference's blocks as one delayed object, shared by its fields and its own date's task: handed to
-    # both as arrays, dask read the reference's chunks twice when the cube was not sliced before (every band
-    # measured; counted in tests/test_cube_radiometry.py)
-    ref_blocks = dask.delayed(list)([data[(i_ref, *w)] for w in take])
-    ref_fields = dask.delayed(_fields)(ref_blocks, bands, settings["block"]["sigma"])
-    tasks = [dask.delayed(_date_task)(None if t == i_ref else ref_fields,
-                                      ref_blocks if t == i_ref else [data[(t, *w)] for w in take],
-                                      bands=bands, picks=picks, settings=settings)
-             for t in range(cube.sizes["time"])]
+    return [dask.delayed(list)([data[(t, *w)] for w in take]) for t in range(cube.sizes["time"])]
+
+
+def _valid_count(blocks) -> int:
+    """Valid (finite) pixel-bands of a date's blocks."""
+    return sum(int(np.count_nonzero(np.isfinite(b))) for b in blocks)
+
+
+def _reference_index(cube: xr.DataArray, reference, reads: list, windows, memory: int) -> tuple[int, list, str]:
+    """(position of the reference date, the reads to measure from, how the reference was chosen).
+
+    A given ``reference`` is checked by :func:`reference_date`. Without one, the date with most valid
+    pixel-bands in the blocks: the blocks of every date are read and kept (``persist``) when they fit in
+    ``memory`` bytes, so measuring reads nothing again; otherwise they are only counted, and read again
+    by the measuring tasks.
+    """
+    times = cube["time"].values
+    if reference is not None:
+        return int(np.flatnonzero(times == reference_date(cube, reference))[0]), reads, "given"
+    area = sum((wy.stop - wy.start) * (wx.stop - wx.start) for wy, wx in windows)
+    if times.size * cube.sizes["band"] * area * cube.dtype.itemsize <= memory:
+        reads = list(dask.persist(*reads))
+    counts = dask.compute(*[dask.delayed(_valid_count)(r) for r in reads])
+    return int(np.argmax(counts)), reads, "most valid pixels in the measured blocks"
+
+
+def _measure_dates(reads: list, i_ref: int, *, bands, picks, settings):
+    """The per-date tasks over the blocks, computed together: each date's blocks (``reads``) are read by its
+    own task, the reference's once (one delayed object, shared by its fields and its own date's task; its
+    fields transformed once for all dates), so memory holds the reference's fields and the dates in flight."""
+    ref_fields = dask.delayed(_fields)(reads[i_ref], bands, settings["block"]["sigma"])
+    tasks = [dask.delayed(_date_task)(None if t == i_ref else ref_fields, reads[t], bands=bands, picks=picks,
+                                      settings=settings)
+             for t in range(len(reads))]
     with one_blas_thread():
         return dask.compute(*tasks)
 
@@ -167,7 +198,7 @@ def _registration_settings(upsample, min_valid, min_blocks, sigma, min_peak_rati
             "combine": dict(min_blocks=min_blocks, max_spread=max_spread)}
 
 
-def _shift_dataset(times, results, i_ref, *, band_names, block, n_windows, settings, ref) -> xr.Dataset:
+def _shift_dataset(times, results, i_ref, *, band_names, block, n_windows, settings, chosen) -> xr.Dataset:
     n_t = len(times)
     out = {k: np.full(n_t, np.nan) for k in ("shift_y", "shift_x", "shift_sd")}
     count = np.zeros(n_t, dtype=np.int64)
@@ -193,7 +224,8 @@ def _shift_dataset(times, results, i_ref, *, band_names, block, n_windows, setti
         coords={"time": times},
         attrs={"method": "cross-correlation of sign-free gradient fields, upsampled peak (Argyriou & Vlachos "
                          "2003; Guizar-Sicairos et al. 2008)", "band": ",".join(band_names),
-               "reference": _date_label(ref), "block": block, "n_blocks": n_windows,
+               "reference": _date_label(times[i_ref]), "reference_index": i_ref, "reference_choice": chosen,
+               "block": block, "n_blocks": n_windows,
                "upsample": settings["block"]["upsample"], "min_peak_ratio": settings["block"]["min_peak_ratio"],
                "max_peak_sd": settings["block"]["max_peak_sd"],
                "max_spread": settings["combine"]["max_spread"]})
@@ -202,7 +234,7 @@ def _shift_dataset(times, results, i_ref, *, band_names, block, n_windows, setti
 def measure_registration(cube: xr.DataArray, *, band, reference, n_blocks: int = N_BLOCKS, block: int = 256,
                          upsample: int = 20, min_valid: float = 0.5, min_blocks: int = 3, sigma: float = SIGMA,
                          min_peak_ratio: float = MIN_PEAK_RATIO, max_peak_sd: float = MAX_PEAK_SD,
-                         max_spread: float = MAX_SPREAD) -> xr.Dataset:
+                         max_spread: float = MAX_SPREAD, memory: int = BLOCK_MEMORY) -> xr.Dataset:
     """Sub-pixel shift of every date against ``reference`` by correlating gradient fields over blocks.
 
     Only ``n_blocks`` windows of ``block`` x ``block`` pixels (at least :data:`~unmix.comparability.MIN_BLOCK`;
@@ -219,9 +251,13 @@ def measure_registration(cube: xr.DataArray, *, band, reference, n_blocks: int =
         measures scenes whose edges show in some bands only (on the invented demo scene every band together
         keeps registered dates within 0.05 px, the near-infrared alone within about 0.2 px).
     reference : date or None
-        Reference date (see :func:`reference_date`; None: the date with most valid pixels).
+        Reference date (a date of the cube); None: the date with most valid pixel-bands in the blocks,
+        found from the same read when the blocks of every date fit in ``memory`` bytes (else they are
+        read twice).
     n_blocks, block, upsample, min_valid, min_blocks, sigma, min_peak_ratio, max_peak_sd, max_spread
         Layout of the blocks and the kernel's settings (:func:`unmix.comparability.block_shifts`).
+    memory : int
+        Bytes the blocks of every date may take while the reference is chosen (:data:`BLOCK_MEMORY`).
 
     Returns
     -------
@@ -229,7 +265,8 @@ def measure_registration(cube: xr.DataArray, *, band, reference, n_blocks: int =
         ``shift_y``, ``shift_x`` [pixel] (the shift that aligns the date to the reference), ``shift_sd``
         [pixel] (spread between blocks: median absolute deviation x 1.4826), ``n_blocks`` measured,
         ``valid_share`` of the blocks and ``reason`` ('' when measured, else why not; the shift is then
-        NaN: too few valid pixels, no lasting texture, blocks that disagree).
+        NaN: too few valid pixels, no lasting texture, blocks that disagree). Attributes ``reference``,
+        ``reference_index`` (its position in the cube) and ``reference_choice`` ('given' or how it was chosen).
 
     Raises
     ------
@@ -242,15 +279,14 @@ def measure_registration(cube: xr.DataArray, *, band, reference, n_blocks: int =
     Argyriou, V. and Vlachos, T. (2003). doi:10.1049/el:20030666
     """
     idx = _band_indices(cube, band)
-    ref = reference_date(cube, reference)
     windows = block_layout(cube, n_blocks, block)
-    i_ref = int(np.flatnonzero(cube["time"].values == ref)[0])
+    sub = cube.isel(band=idx)
+    i_ref, reads, chosen = _reference_index(sub, reference, _block_reads(sub, windows), windows, memory)
     settings = _registration_settings(upsample, min_valid, min_blocks, sigma, min_peak_ratio, max_peak_sd,
                                       max_spread)
-    sub = cube.isel(band=idx)
-    results = _measure_dates(sub, windows, i_ref, bands=list(range(len(idx))), picks=None, settings=settings)
+    results = _measure_dates(reads, i_ref, bands=list(range(len(idx))), picks=None, settings=settings)
     return _shift_dataset(cube["time"].values, results, i_ref, band_names=[str(b) for b in sub["band"].values],
-                          block=block, n_windows=len(windows), settings=settings, ref=ref)
+                          block=block, n_windows=len(windows), settings=settings, chosen=chosen)
 
 
 def registration_verdict(shifts: xr.Dataset, *, warn: float = WARN_SHIFT, max_shift: float = MAX_SHIFT) -> xr.DataArray:
@@ -277,7 +313,7 @@ def measure_radiometry(cube: xr.DataArray, *, reference, by: str | None = None, 
     ----------
     cube : (time, band, y, x) DataArray
     reference : date or None
-        Reference date (see :func:`reference_date`; None: the date with most valid pixels).
+        Reference date (a date of the cube); None: the date with most valid pixel-bands in the sample.
     by : str, optional
         Time coordinate grouping the dates (e.g. ``"sensor"``): each group is fitted within itself, the
         reference's group against ``reference``, every other group against its date with most sampled
@@ -296,11 +332,16 @@ def measure_radiometry(cube: xr.DataArray, *, reference, by: str | None = None, 
     ----------
     Canty, M. J. and Nielsen, A. A. (2008). doi:10.1016/j.rse.2007.07.013
     """
-    ref = reference_date(cube, reference)
     values = sample_scene(cube, sample, seed)
-    i_ref = int(np.flatnonzero(cube["time"].values == ref)[0])
-    return fit_sample(cube, values, i_ref, by=by, seed=seed, threshold=threshold, min_pixels=min_pixels,
+    if reference is None:  # the date with most valid pixel-bands in the sample: nothing more to read
+        i_ref = int(np.argmax(np.isfinite(values).sum(axis=(1, 2))))
+    else:
+        i_ref = int(np.flatnonzero(cube["time"].values == reference_date(cube, reference))[0])
+    fits = fit_sample(cube, values, i_ref, by=by, seed=seed, threshold=threshold, min_pixels=min_pixels,
                       min_r2=min_r2, gain_tolerance=gain_tolerance)
+    fits.attrs.update(reference_index=i_ref, reference_choice="given" if reference is not None else
+                      "most valid pixels in the sample")
+    return fits
 
 
 def measure_comparability(cube: xr.DataArray, *, band, reference, by: str | None = None, n_blocks: int = N_BLOCKS,
@@ -309,7 +350,7 @@ def measure_comparability(cube: xr.DataArray, *, band, reference, by: str | None
                           min_pixels: int = MIN_INVARIANT, min_r2: float = MIN_R2,
                           gain_tolerance: float = GAIN_TOLERANCE, sigma: float = SIGMA,
                           min_peak_ratio: float = MIN_PEAK_RATIO, max_peak_sd: float = MAX_PEAK_SD,
-                          max_spread: float = MAX_SPREAD) -> tuple[xr.Dataset, xr.Dataset]:
+                          max_spread: float = MAX_SPREAD, memory: int = BLOCK_MEMORY) -> tuple[xr.Dataset, xr.Dataset]:
     """Registration and radiometry from one read of the blocks (all bands).
 
     As :func:`measure_registration` and :func:`measure_radiometry`, but the radiometric sample is a fixed
@@ -318,7 +359,11 @@ def measure_comparability(cube: xr.DataArray, *, band, reference, by: str | None
     the dates in flight and the sample. Every date's shift is measured against ``reference``; with ``by``
     (e.g. ``"sensor"``) the radiometry is fitted within each group of dates, from the same sample: the
     reference's group against ``reference``, every other group against its date with most sampled pixels
-    valid in every band (:func:`unmix.cube.radiometry.fit_sample`). Returns ``(shifts, fits)``.
+    valid in every band (:func:`unmix.cube.radiometry.fit_sample`). Without ``reference``, the date with
+    most valid pixel-bands in the blocks is the reference, chosen from the same read while the blocks of
+    every date fit in ``memory`` bytes (:data:`BLOCK_MEMORY`; beyond, the blocks are read twice). Returns
+    ``(shifts, fits)``; the reference and how it was chosen are in ``shifts.attrs`` (``reference``,
+    ``reference_index``, ``reference_choice``).
 
     References
     ----------
@@ -327,17 +372,15 @@ def measure_comparability(cube: xr.DataArray, *, band, reference, by: str | None
     Canty, M. J. and Nielsen, A. A. (2008). doi:10.1016/j.rse.2007.07.013
     """
     idx = _band_indices(cube, band)
-    ref = reference_date(cube, reference)
-    i_ref = int(np.flatnonzero(cube["time"].values == ref)[0])
     windows = block_layout(cube, n_blocks, block)
+    i_ref, reads, chosen = _reference_index(cube, reference, _block_reads(cube, windows), windows, memory)
     settings = _registration_settings(upsample, min_valid, min_blocks, sigma, min_peak_ratio, max_peak_sd,
                                       max_spread)
-    results = _measure_dates(cube, windows, i_ref, bands=idx, picks=window_picks(windows, sample, seed),
-                             settings=settings)
+    results = _measure_dates(reads, i_ref, bands=idx, picks=window_picks(windows, sample, seed), settings=settings)
     shifts = _shift_dataset(cube["time"].values, results, i_ref, block=block, n_windows=len(windows),
-                            band_names=[str(cube["band"].values[k]) for k in idx], settings=settings, ref=ref)
+                            band_names=[str(cube["band"].values[k]) for k in idx], settings=settings, chosen=chosen)
     values = np.stack([smp for _, _, smp in results]).astype(np.float64).transpose(0, 2, 1)  # (time, pixel, band)
     fits = fit_sample(cube, values, i_ref, by=by, seed=seed, threshold=threshold, min_pixels=min_pixels,
                       min_r2=min_r2, gain_tolerance=gain_tolerance)
-    fits.attrs["sampled_from"] = "registration blocks"
+    fits.attrs.update(sampled_from="registration blocks", reference_index=i_ref, reference_choice=chosen)
     return shifts, fits

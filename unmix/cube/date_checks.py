@@ -125,10 +125,11 @@ def _bands(band) -> list[str] | None:
 
 
 def _measure(sub: xr.DataArray, settings: CheckSettings, band: list[str] | None):
-    """Reference date, shifts and radiometric fits of the dates of ``sub`` (None where not measured)."""
+    """Reference date, how it was chosen, shifts and radiometric fits of the dates of ``sub`` (None where not
+    measured; no reference when nothing was measured)."""
     from .comparability import measure_comparability, measure_radiometry, measure_registration
 
-    ref = reference_date(sub, settings.reference)
+    given = None if settings.reference is None else reference_date(sub, settings.reference)  # checked first
     seen = sub  # measured on plausible reflectance only (an undeclared fill value such as 1e30 is no data here too)
     if settings.valid_range:
         lo, hi = settings.valid_range
@@ -138,15 +139,19 @@ def _measure(sub: xr.DataArray, settings: CheckSettings, band: list[str] | None)
         sub.sizes["time"]
     radiometry = settings.radiometry and largest_group > 1  # a date alone in its sensor has nothing to fit to
     blocks = dict(n_blocks=settings.n_blocks, block=settings.block)
-    fit = dict(reference=ref, by=by, gain_tolerance=settings.gain_tolerance, min_pixels=settings.min_invariant)
+    fit = dict(reference=given, by=by, gain_tolerance=settings.gain_tolerance, min_pixels=settings.min_invariant)
     shifts = fits = None
     if settings.registration and radiometry:
         shifts, fits = measure_comparability(seen, band=band, **blocks, **fit)
     elif settings.registration:
-        shifts = measure_registration(seen, band=band, reference=ref, **blocks)
+        shifts = measure_registration(seen, band=band, reference=given, **blocks)
     elif radiometry:
         fits = measure_radiometry(seen, **fit)
-    return ref, shifts, fits
+    # without a given date, the measures chose it from what they read (the date with most valid pixels)
+    found = shifts if shifts is not None else fits
+    if found is None:
+        return given, "", shifts, fits
+    return sub["time"].values[int(found.attrs["reference_index"])], str(found.attrs["reference_choice"]), shifts, fits
 
 
 def _season(rec: Account, cube: xr.DataArray, settings: CheckSettings) -> np.ndarray:
@@ -229,8 +234,9 @@ def check_dates(cube: xr.DataArray, settings: CheckSettings = CheckSettings(), *
     band_label = ", ".join(band) if band else "all bands"
     ref = shifts = fits = None
     if (settings.registration or settings.radiometry) and sub.sizes["time"] > 1:
-        ref, shifts, fits = _measure(sub, settings, band)
-        reference_verdict(rec, ref, fits, settings, sub)
+        ref, choice, shifts, fits = _measure(sub, settings, band)
+        if ref is not None:
+            reference_verdict(rec, ref, fits, settings, sub, choice)
 
     correct = np.zeros(index.size, bool)
     if shifts is not None:
