@@ -20,7 +20,8 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy import linalg, special
-from threadpoolctl import threadpool_limits
+
+from ._blas import one_blas_thread
 
 __all__ = ["MadResult", "RadiometricFit", "irmad", "invariant_pixels", "orthogonal_regression", "normalise",
            "fit_flag", "fit_date", "MIN_R2", "GAIN_TOLERANCE", "IRMAD_TOL", "IRMAD_FIT_PIXELS"]
@@ -148,7 +149,7 @@ def irmad(x: np.ndarray, y: np.ndarray, *, max_iter: int = 50, tol: float = IRMA
     n, p = x.shape
     if n <= 2 * p:
         raise ValueError(f"IR-MAD needs more pixels than 2 x bands ({2 * p}), got {n}")
-    with threadpool_limits(limits=1, user_api="blas"):
+    with one_blas_thread():
         if fit_pixels is None or n <= fit_pixels:
             return _irmad(x, y, max_iter, tol)
         step = int(np.ceil(n / fit_pixels))

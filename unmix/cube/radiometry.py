@@ -22,6 +22,7 @@ import numpy as np
 import xarray as xr
 
 from unmix.comparability import GAIN_TOLERANCE, MIN_R2, fit_date
+from unmix.comparability._blas import one_blas_thread  # noqa: F401 - the measures' BLAS guard
 from unmix.errors import UnknownNameError
 
 #: Pixels sampled for the radiometric fit. The fit itself needs far fewer (IR-MAD's 12 x 12 covariance
@@ -42,14 +43,6 @@ def date_label(value) -> str:
     """A date as YYYY-MM-DD (any other time label as text)."""
     return str(np.datetime_as_string(np.datetime64(value, "D"))) if np.issubdtype(
         np.asarray(value).dtype, np.datetime64) else str(value)
-
-
-def one_blas_thread():
-    """BLAS on one thread while measuring: the dates already run in parallel, and the small matrix products
-    of the peak refinement waited tens of milliseconds for a BLAS thread on a loaded machine (0.5 ms alone)."""
-    from threadpoolctl import threadpool_limits
-
-    return threadpool_limits(limits=1, user_api="blas")
 
 
 def _pick(block: np.ndarray, *, rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
