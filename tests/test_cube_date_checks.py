@@ -150,3 +150,25 @@ def dask_synchronous():
     import dask
 
     return dask.config.set(scheduler="synchronous")
+
+
+def test_measured_on_a_cube_of_smaller_chunks_only(record, checked):
+    # The same record in chunks of 128 px (as unmixing runs on) and of 64 px (one "tile" per block): the
+    # checks read only the small-chunk cube, one chunk per block and date, and find what they find on the
+    # record itself (the ledger of the fixture `checked`, measured on 64 px chunks)
+    large = record.chunk({"y": 128, "x": 128})
+    large_spied, large_calls = spy_chunk_reads(large)
+    small_spied, small_calls = spy_chunk_reads(record)
+    checks = check_dates(large_spied, CheckSettings(window=SEASON, **SMALL), warn=False, measure_on=small_spied)
+    assert not large_calls  # nothing of the unmixing cube is read
+    kept = int((~checked.ledger.reason.str.contains("window")).sum())
+    assert len(small_calls) == 4 * kept and all(shape[-2:] == (64, 64) for shape in small_calls)
+    xr.testing.assert_identical(checks.ledger, checked.ledger)
+    assert checks.cube.chunks == large.sel(time=checks.cube.time).chunks  # unmixing keeps its own chunks
+
+
+def test_a_measuring_cube_of_another_stack_is_refused(record):
+    from unmix.errors import ShapeError
+
+    with pytest.raises(ShapeError, match="time"):
+        check_dates(record, CheckSettings(**SMALL), measure_on=record.isel(time=slice(1, None)))

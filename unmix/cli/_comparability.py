@@ -16,7 +16,7 @@ import click
 from ..cube.date_checks import CheckSettings, check_dates
 from ..errors import ComparabilityWarning, InputError
 
-__all__ = ["comparability_options", "settings_from", "run_date_checks", "OPTION_OF"]
+__all__ = ["comparability_options", "settings_from", "run_date_checks", "measuring_params", "OPTION_OF"]
 
 #: The option that sets each field of :class:`CheckSettings` a verdict, warning or error may name.
 OPTION_OF = {
@@ -126,13 +126,22 @@ def _hinted(text: str, settings: tuple[str, ...]) -> str:
     return f"{text} [{', '.join(options)}]" if options else text
 
 
-def run_date_checks(cube: Any, settings: CheckSettings) -> tuple[Any, Any, list[str]]:
+def run_date_checks(cube: Any, settings: CheckSettings, measure_on: Any = None) -> tuple[Any, Any, list[str]]:
     """Run the date checks on ``cube``: (cube to unmix, ledger of every date, verdict lines to print).
 
-    The warnings of the checks are issued here, and the verdict lines returned, each with the options
-    that act on it.
+    ``measure_on``: the same stack opened in chunks of the files' tiles, which the measuring blocks read
+    (:func:`unmix.cube.date_checks.check_dates`). The warnings of the checks are issued here, and the
+    verdict lines returned, each with the options that act on it.
     """
-    checks = check_dates(cube, settings, warn=False)
+    checks = check_dates(cube, settings, warn=False, measure_on=measure_on)
     for w in checks.warnings:
         warnings.warn(ComparabilityWarning(_hinted(str(w), w.settings), settings=w.settings), stacklevel=2)
     return checks.cube, checks.ledger, [_hinted(v.text, v.settings) for v in checks.verdicts]
+
+
+def measuring_params(params: dict, settings: CheckSettings) -> dict | None:
+    """A command's input options with chunks the size of a measuring block (rounded up to the files' tiles
+    when the stack is opened), for the cube the date checks read; None when nothing is measured."""
+    if not (settings.registration or settings.radiometry):
+        return None
+    return {**params, "chunk_size": settings.block}

@@ -22,7 +22,7 @@ from ..sensors.roles import bands_for_roles
 from ..solvers import Constraint
 from ..spectra import on_bands
 from ._common import claim_products, echo_summary, out_dir_option, overwrite_option, split_names, writes_products
-from ._comparability import comparability_options, run_date_checks, settings_from
+from ._comparability import comparability_options, measuring_params, run_date_checks, settings_from
 from ._inputs import _int_list, archive_options, check_input_options, expand_paths, open_input, stack_options
 from ._scheduler import dask_scheduler, scheduler_options
 
@@ -188,7 +188,12 @@ def fractions(ctx: click.Context, stack: tuple[str, ...], library: Path, sensor:
     else:
         M = np.asarray(on_bands(lib, sensor_obj, stack_bands, where=f"library {library}").spectra)
         sensor_label = sensor_obj.id
-    cube, ledger, verdicts = run_date_checks(cube, dataclasses.replace(check_settings, valid_range=vrange))
+    # the measuring blocks read the stack opened again in chunks of one file tile: in the larger chunks
+    # unmixing runs on, each block would decode every tile of its chunk
+    measuring = measuring_params(ctx.params, check_settings)
+    measure_on = open_input(paths, measuring)[0] if measuring is not None else None
+    cube, ledger, verdicts = run_date_checks(cube, dataclasses.replace(check_settings, valid_range=vrange),
+                                             measure_on=measure_on)
     if mesma and isinstance(M, dict):
         raise InputError(f"--mesma on a record that switches sensor ({sensor_label}) is not available; run it on "
                          "each sensor's dates separately, or leave --mesma out")

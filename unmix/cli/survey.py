@@ -14,7 +14,7 @@ from typing import Any
 import click
 
 from ._common import claim_products, echo_summary, overwrite_option, writes_products
-from ._comparability import comparability_options, run_date_checks, settings_from
+from ._comparability import comparability_options, measuring_params, run_date_checks, settings_from
 from ._inputs import archive_options, expand_paths, open_input, stack_options
 
 __all__ = ["survey", "format_ledger"]
@@ -59,7 +59,8 @@ def survey(ctx: click.Context, stack: tuple[str, ...], ledger_csv: Path | None, 
         lines = list(ledger.attrs.get("verdicts", []))
     else:
         settings = settings_from(options)
-        cube, _, _ = open_input(paths, options)
+        # nothing is unmixed: one cube, in chunks the measuring blocks read one file tile at a time
+        cube, _, _ = open_input(paths, measuring_params(options, settings) or options)
         _, ledger, lines = run_date_checks(cube, settings)
         source = f"{cube.sizes['time']} dates of {', '.join(map(str, stack))} (nothing unmixed)"
     click.echo(format_ledger(ledger))

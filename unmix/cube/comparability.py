@@ -150,11 +150,30 @@ def _date_task(ref_fields, blocks, *, bands, picks, settings):
     return found, valid, sample
 
 
-def _block_reads(cube: xr.DataArray, windows) -> list:
-    """One delayed list of (band, y, x) blocks per date: the windows of every band of ``cube``."""
+def _block_reads(cube: xr.DataArray, windows, valid_range=None) -> list:
+    """One delayed list of (band, y, x) blocks per date: the windows of every band of ``cube``, values
+    outside ``valid_range`` (low, high) set to NaN.
+
+    Each window is sliced once over all dates (one chunk per date, its chunk's read, sliced), rather than
+    once per date: on 40 dates and 4 windows, 160 slices took 0.3 s to build before anything was read.
+    The range is applied to the blocks, not to the cube, so only the blocks' pixels are compared.
+    """
     data = cube.transpose("time", "band", "y", "x").data
-    take = [(slice(None), wy, wx) for wy, wx in windows]
-    return [dask.delayed(list)([data[(t, *w)] for w in take]) for t in range(cube.sizes["time"])]
+    n_t = cube.sizes["time"]
+    if not isinstance(data, da.Array):
+        return [dask.delayed(_date_blocks)([data[t:t + 1, :, wy, wx] for wy, wx in windows], valid_range)
+                for t in range(n_t)]
+    per_window = [data[:, :, wy, wx].rechunk((1, -1, -1, -1)).to_delayed().reshape(n_t) for wy, wx in windows]
+    return [dask.delayed(_date_blocks)([blocks[t] for blocks in per_window], valid_range) for t in range(n_t)]
+
+
+def _date_blocks(chunks: list, valid_range) -> list:
+    """The (band, y, x) block of each one-date chunk (1, band, y, x), NaN outside ``valid_range``."""
+    blocks = [np.asarray(c[0]) for c in chunks]
+    if valid_range is None:
+        return blocks
+    lo, hi = valid_range
+    return [np.where((b >= lo) & (b <= hi), b, np.nan).astype(b.dtype, copy=False) for b in blocks]
 
 
 def _valid_count(blocks) -> int:
@@ -234,7 +253,8 @@ def _shift_dataset(times, results, i_ref, *, band_names, block, n_windows, setti
 def measure_registration(cube: xr.DataArray, *, band, reference, n_blocks: int = N_BLOCKS, block: int = 256,
                          upsample: int = 20, min_valid: float = 0.5, min_blocks: int = 3, sigma: float = SIGMA,
                          min_peak_ratio: float = MIN_PEAK_RATIO, max_peak_sd: float = MAX_PEAK_SD,
-                         max_spread: float = MAX_SPREAD, memory: int = BLOCK_MEMORY) -> xr.Dataset:
+                         max_spread: float = MAX_SPREAD, memory: int = BLOCK_MEMORY,
+                         valid_range: tuple[float, float] | None = None) -> xr.Dataset:
     """Sub-pixel shift of every date against ``reference`` by correlating gradient fields over blocks.
 
     Only ``n_blocks`` windows of ``block`` x ``block`` pixels (at least :data:`~unmix.comparability.MIN_BLOCK`;
@@ -258,6 +278,9 @@ def measure_registration(cube: xr.DataArray, *, band, reference, n_blocks: int =
         Layout of the blocks and the kernel's settings (:func:`unmix.comparability.block_shifts`).
     memory : int
         Bytes the blocks of every date may take while the reference is chosen (:data:`BLOCK_MEMORY`).
+    valid_range : (float, float), optional
+        Values outside it are no data for the measures (an undeclared fill value such as 1e30), applied
+        to the blocks read.
 
     Returns
     -------
@@ -281,7 +304,7 @@ def measure_registration(cube: xr.DataArray, *, band, reference, n_blocks: int =
     idx = _band_indices(cube, band)
     windows = block_layout(cube, n_blocks, block)
     sub = cube.isel(band=idx)
-    i_ref, reads, chosen = _reference_index(sub, reference, _block_reads(sub, windows), windows, memory)
+    i_ref, reads, chosen = _reference_index(sub, reference, _block_reads(sub, windows, valid_range), windows, memory)
     settings = _registration_settings(upsample, min_valid, min_blocks, sigma, min_peak_ratio, max_peak_sd,
                                       max_spread)
     results = _measure_dates(reads, i_ref, bands=list(range(len(idx))), picks=None, settings=settings)
@@ -300,7 +323,8 @@ def registration_verdict(shifts: xr.Dataset, *, warn: float = WARN_SHIFT, max_sh
 
 def measure_radiometry(cube: xr.DataArray, *, reference, by: str | None = None, sample: int = SAMPLE, seed: int = 0,
                        threshold: float = 0.95, min_pixels: int = MIN_INVARIANT, min_r2: float = MIN_R2,
-                       gain_tolerance: float = GAIN_TOLERANCE) -> xr.Dataset:
+                       gain_tolerance: float = GAIN_TOLERANCE,
+                       valid_range: tuple[float, float] | None = None) -> xr.Dataset:
     """Gain and offset per date and band that map the date onto a reference date (pseudo-invariant pixels).
 
     A fixed random sample of ``sample`` pixels over the scene (the same on every date, ``seed``) is read;
@@ -320,6 +344,8 @@ def measure_radiometry(cube: xr.DataArray, *, reference, by: str | None = None, 
         pixels valid in every band (:func:`unmix.cube.radiometry.fit_sample`). None: one group.
     sample, seed, threshold, min_pixels, min_r2, gain_tolerance
         The sample and the fit's settings.
+    valid_range : (float, float), optional
+        Sampled values outside it are no data.
 
     Returns
     -------
@@ -333,6 +359,8 @@ def measure_radiometry(cube: xr.DataArray, *, reference, by: str | None = None, 
     Canty, M. J. and Nielsen, A. A. (2008). doi:10.1016/j.rse.2007.07.013
     """
     values = sample_scene(cube, sample, seed)
+    if valid_range is not None:
+        values[(values < valid_range[0]) | (values > valid_range[1])] = np.nan
     if reference is None:  # the date with most valid pixel-bands in the sample: nothing more to read
         i_ref = int(np.argmax(np.isfinite(values).sum(axis=(1, 2))))
     else:
@@ -350,7 +378,8 @@ def measure_comparability(cube: xr.DataArray, *, band, reference, by: str | None
                           min_pixels: int = MIN_INVARIANT, min_r2: float = MIN_R2,
                           gain_tolerance: float = GAIN_TOLERANCE, sigma: float = SIGMA,
                           min_peak_ratio: float = MIN_PEAK_RATIO, max_peak_sd: float = MAX_PEAK_SD,
-                          max_spread: float = MAX_SPREAD, memory: int = BLOCK_MEMORY) -> tuple[xr.Dataset, xr.Dataset]:
+                          max_spread: float = MAX_SPREAD, memory: int = BLOCK_MEMORY,
+                          valid_range: tuple[float, float] | None = None) -> tuple[xr.Dataset, xr.Dataset]:
     """Registration and radiometry from one read of the blocks (all bands).
 
     As :func:`measure_registration` and :func:`measure_radiometry`, but the radiometric sample is a fixed
@@ -373,7 +402,7 @@ def measure_comparability(cube: xr.DataArray, *, band, reference, by: str | None
     """
     idx = _band_indices(cube, band)
     windows = block_layout(cube, n_blocks, block)
-    i_ref, reads, chosen = _reference_index(cube, reference, _block_reads(cube, windows), windows, memory)
+    i_ref, reads, chosen = _reference_index(cube, reference, _block_reads(cube, windows, valid_range), windows, memory)
     settings = _registration_settings(upsample, min_valid, min_blocks, sigma, min_peak_ratio, max_peak_sd,
                                       max_spread)
     results = _measure_dates(reads, i_ref, bands=idx, picks=window_picks(windows, sample, seed), settings=settings)

@@ -23,7 +23,7 @@ import numpy as np
 import xarray as xr
 
 from ..comparability import GAIN_TOLERANCE, MAX_SHIFT, DateWindow
-from ..errors import ComparabilityWarning, InputError
+from ..errors import ComparabilityWarning, InputError, ShapeError
 from ._date_verdicts import Account, Verdict, day, judge_radiometry, judge_registration, reference_verdict
 from .comparability import N_BLOCKS, reference_date
 from .phenology import CompositeMethod
@@ -130,10 +130,8 @@ def _measure(sub: xr.DataArray, settings: CheckSettings, band: list[str] | None)
     from .comparability import measure_comparability, measure_radiometry, measure_registration
 
     given = None if settings.reference is None else reference_date(sub, settings.reference)  # checked first
-    seen = sub  # measured on plausible reflectance only (an undeclared fill value such as 1e30 is no data here too)
-    if settings.valid_range:
-        lo, hi = settings.valid_range
-        seen = sub.where((sub >= lo) & (sub <= hi))
+    # measured on plausible reflectance only (an undeclared fill value such as 1e30 is no data here too)
+    plausible = dict(valid_range=tuple(settings.valid_range) if settings.valid_range else None)
     by = "sensor" if "sensor" in sub.coords else None
     largest_group = max(np.unique(np.asarray(sub[by].values).astype(str), return_counts=True)[1]) if by else \
         sub.sizes["time"]
@@ -142,16 +140,28 @@ def _measure(sub: xr.DataArray, settings: CheckSettings, band: list[str] | None)
     fit = dict(reference=given, by=by, gain_tolerance=settings.gain_tolerance, min_pixels=settings.min_invariant)
     shifts = fits = None
     if settings.registration and radiometry:
-        shifts, fits = measure_comparability(seen, band=band, **blocks, **fit)
+        shifts, fits = measure_comparability(sub, band=band, **blocks, **fit, **plausible)
     elif settings.registration:
-        shifts = measure_registration(seen, band=band, reference=given, **blocks)
+        shifts = measure_registration(sub, band=band, reference=given, **blocks, **plausible)
     elif radiometry:
-        fits = measure_radiometry(seen, **fit)
+        fits = measure_radiometry(sub, **fit, **plausible)
     # without a given date, the measures chose it from what they read (the date with most valid pixels)
     found = shifts if shifts is not None else fits
     if found is None:
         return given, "", shifts, fits
     return sub["time"].values[int(found.attrs["reference_index"])], str(found.attrs["reference_choice"]), shifts, fits
+
+
+def _same_stack(other: xr.DataArray, cube: xr.DataArray) -> xr.DataArray:
+    """``other``, checked to hold the dates, bands and grid of ``cube``."""
+    problems = [name for name in ("time", "band", "y", "x")
+                if other.sizes.get(name) != cube.sizes.get(name)
+                or (name in cube.coords and name in other.coords
+                    and not np.array_equal(other[name].values, cube[name].values))]
+    if problems:
+        raise ShapeError(f"the cube to measure on is not the stack to unmix: its {', '.join(problems)} differ; open "
+                         "the same files for both")
+    return other.transpose(*cube.dims)
 
 
 def _season(rec: Account, cube: xr.DataArray, settings: CheckSettings) -> np.ndarray:
@@ -174,7 +184,8 @@ def _season(rec: Account, cube: xr.DataArray, settings: CheckSettings) -> np.nda
     return keep
 
 
-def check_dates(cube: xr.DataArray, settings: CheckSettings = CheckSettings(), *, warn: bool = True) -> DateChecks:
+def check_dates(cube: xr.DataArray, settings: CheckSettings = CheckSettings(), *, warn: bool = True,
+                measure_on: xr.DataArray | None = None) -> DateChecks:
     """Run the date checks on a lazy cube: which dates are comparable, and the ledger of every date.
 
     In order: the dates inside ``settings.window``; the reference date; each date's sub-pixel shift and
@@ -192,6 +203,10 @@ def check_dates(cube: xr.DataArray, settings: CheckSettings = CheckSettings(), *
     warn : bool
         Also issue the warnings found (:class:`~unmix.errors.ComparabilityWarning`); they are in the result
         either way, for a caller that shows them itself.
+    measure_on : (time, band, y, x) DataArray, optional
+        The same stack (dates, bands, grid) chunked for measuring: a measuring block reads the whole
+        chunk it lies in, so chunks of the files' own tiles (rather than the larger chunks unmixing
+        runs on) keep the read to one tile per block. Default: ``cube``.
 
     Returns
     -------
@@ -206,6 +221,8 @@ def check_dates(cube: xr.DataArray, settings: CheckSettings = CheckSettings(), *
         The window keeps fewer than :data:`MIN_DATES` dates (both counts named); the reference date or a
         registration band is not in the cube; every date is left out (a safety net: the reference date
         never is).
+    ShapeError
+        ``measure_on`` is not the same stack as ``cube`` (dates, bands or grid differ).
 
     References
     ----------
@@ -234,7 +251,8 @@ def check_dates(cube: xr.DataArray, settings: CheckSettings = CheckSettings(), *
     band_label = ", ".join(band) if band else "all bands"
     ref = shifts = fits = None
     if (settings.registration or settings.radiometry) and sub.sizes["time"] > 1:
-        ref, choice, shifts, fits = _measure(sub, settings, band)
+        seen = sub if measure_on is None else _same_stack(measure_on, cube).isel(time=index)
+        ref, choice, shifts, fits = _measure(seen, settings, band)
         if ref is not None:
             reference_verdict(rec, ref, fits, settings, sub, choice)
 
