@@ -189,13 +189,22 @@ def block_shift(reference: np.ndarray, moving: np.ndarray, *, upsample: int = 10
 class BlockField:
     """One date's block as the correlation sees it (:func:`block_field`): ``valid`` pixels, ``inside`` (valid
     and further than the filters reach from a gap or the edge), the tapered ``field`` (zero outside
-    ``inside``; None when the block is empty or constant) and its Fourier transform ``spectrum``."""
+    ``inside``; None when the block is empty or constant), the band ``noise`` scales, and the field's
+    Fourier transform ``spectrum`` (computed when first asked for: a pair whose masks differ transforms
+    the masked fields instead, see :func:`field_shift`)."""
 
     valid: np.ndarray
     inside: np.ndarray
     field: np.ndarray | None
-    spectrum: np.ndarray | None
     noise: np.ndarray | None = None
+
+    @property
+    def spectrum(self) -> np.ndarray | None:
+        # kept in the instance's dict by hand: functools.cached_property holds one lock for every instance
+        # on Python 3.11, which would queue the dates' threads; two threads may both compute it, harmlessly
+        if "_spectrum" not in self.__dict__:
+            self.__dict__["_spectrum"] = None if self.field is None else fft.fft2(self.field)
+        return self.__dict__["_spectrum"]
 
 
 def block_field(block: np.ndarray, *, sigma: float = SIGMA, noise: np.ndarray | None = None) -> BlockField:
@@ -217,13 +226,13 @@ def block_field(block: np.ndarray, *, sigma: float = SIGMA, noise: np.ndarray | 
     valid = valid_pixels(planes)
     inside = inside_mask(valid, sigma)
     if not inside.any():
-        return BlockField(valid, inside, None, None)
+        return BlockField(valid, inside, None)
     noise = band_noise(planes, valid) if noise is None else noise
     field = orientation_field(planes, valid, sigma=sigma, noise=noise)
     if not field.any():  # constant bands (or bands without noise scale): nothing to correlate
-        return BlockField(valid, inside, None, None, noise)
+        return BlockField(valid, inside, None, noise)
     field *= _hann(*valid.shape)
-    return BlockField(valid, inside, field, fft.fft2(field), noise)
+    return BlockField(valid, inside, field, noise)
 
 
 @functools.lru_cache(maxsize=8)
