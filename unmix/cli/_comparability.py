@@ -140,8 +140,9 @@ def run_date_checks(cube: Any, settings: CheckSettings, measure_on: Any = None) 
 
 
 def measuring_params(params: dict, settings: CheckSettings) -> dict | None:
-    """A command's input options with chunks the size of a measuring block (rounded up to the files' tiles
-    when the stack is opened), for the cube the date checks read; None when nothing is measured."""
+    """A command's input options with chunks the size of a measuring block, for the cube the date checks
+    read (each block then lies in one chunk, and a chunk reads only the file tiles it overlaps); None when
+    nothing is measured."""
     if not (settings.registration or settings.radiometry):
         return None
     return {**params, "chunk_size": settings.block}
