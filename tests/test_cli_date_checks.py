@@ -172,3 +172,18 @@ def test_bad_input_is_one_line(textured_stack, make_library, tmp_path, capsys, e
     assert code == 2 and len(lines) == 1 and lines[0].startswith("unmix: error:"), err
     assert expect in lines[0]
     assert not (out / "fractions.nc").exists() and not (out / "dates.csv").exists()
+
+
+def test_warnings_print_as_one_line_each_in_a_real_process(textured_stack, tmp_path):
+    # outside pytest's own warning capture: the command's warnings reach stderr as lines of their own,
+    # without the Python file, line number and source line of Python's default format
+    import subprocess
+    import sys
+
+    proc = subprocess.run([sys.executable, "-m", "unmix.cli.main", "survey", *_stack_args(textured_stack),
+                           "--doy-window", "230-270"], capture_output=True, text=True, cwd=tmp_path, timeout=300)
+    assert proc.returncode == 0, proc.stderr
+    lines = [line for line in proc.stderr.splitlines() if line.strip()]
+    warned = [line for line in lines if line.startswith("unmix: warning: ")]
+    assert any(BRIGHT in line for line in warned)  # the band scaled by 1.1, named by date
+    assert not any(".py:" in line or "ComparabilityWarning" in line for line in lines)

@@ -13,12 +13,13 @@ import importlib
 import logging
 import signal
 import sys
+import warnings
 from collections.abc import Iterator
 
 import click
 
 from .. import __version__
-from ..errors import UnmixError
+from ..errors import UnmixError, UnmixWarning
 
 
 class _LazyGroup(click.Group):
@@ -103,11 +104,31 @@ def _one_line(exc: BaseException) -> str:
     return " ".join(str(exc).split())
 
 
+def _format_warning(message, category, filename, lineno, line=None) -> str:
+    """A warning as the commands print it: one line starting ``unmix: warning:``, without the Python file
+    and source line of the default format (the library's own warnings name their class too)."""
+    text = " ".join(str(message).split())
+    if issubclass(category, UnmixWarning):
+        return f"unmix: warning: {text}\n"
+    return f"unmix: warning ({category.__name__}): {text}\n"
+
+
 def main(argv: list[str] | None = None) -> int:
-    """Console-script entry point: run the group, turning UnmixError into one clear line."""
+    """Console-script entry point: run the group, turning UnmixError into one clear line and warnings into
+    lines of their own."""
     # GDAL messages reach Python's logging through rasterio and would print extra lines; a failure they
     # describe is raised as an exception too, and becomes the command's one error line
     logging.getLogger("rasterio").addHandler(logging.NullHandler())
+    # formatwarning, not showwarning: a caller recording warnings (warnings.catch_warnings(record=True),
+    # pytest.warns) still receives them as they are
+    default_format, warnings.formatwarning = warnings.formatwarning, _format_warning
+    try:
+        return _run(argv)
+    finally:
+        warnings.formatwarning = default_format
+
+
+def _run(argv: list[str] | None) -> int:
     try:
         with _sigterm_raises():
             cli.main(args=argv, prog_name="unmix", standalone_mode=False)
