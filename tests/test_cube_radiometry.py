@@ -139,3 +139,20 @@ def test_reference_from_the_blocks_read_once_within_the_memory_allowed(record, m
     assert shifts.attrs["reference"] == "2015-01-01" and fits.attrs["reference_index"] == 0
     assert shifts.shift_y.values[0] == 0 and fits.gain.values[0].tolist() == [1.0, 1.0, 1.0]
     assert len(calls) == reads * 4 * 6  # 4 blocks, each inside one chunk, on 6 dates
+
+
+def test_values_outside_the_plausible_range_are_no_data_in_the_blocks(record):
+    # Reflectance stored as integers (x 10 000) with an undeclared fill value 32767 over part of the scene:
+    # the measures see those pixels as missing; the valid share of each date's blocks equals a count by hand
+    from unmix.cube.comparability import block_layout
+
+    scaled = np.round(np.nan_to_num(record.values, nan=3.2767) * 10000).astype(np.int16)  # gaps: the fill value
+    scaled[:, :, 10:40, 20:90] = 32767
+    cube = record.copy(data=da.from_array(scaled, chunks=(1, 3, 64, 64)))
+    windows = block_layout(cube, SETTINGS["n_blocks"], SETTINGS["block"])
+    plausible = (scaled >= -5000) & (scaled <= 20000)
+    by_hand = [np.mean(np.concatenate([plausible[t][:, wy, wx].all(axis=0).ravel() for wy, wx in windows]))
+               for t in range(6)]
+    shifts, _ = measure_comparability(cube, band=None, reference=REFERENCE, valid_range=(-5000, 20000), **SETTINGS)
+    np.testing.assert_allclose(shifts.valid_share.values, by_hand, rtol=1e-6)
+    assert min(by_hand) < 0.95  # the fill value lies in the blocks

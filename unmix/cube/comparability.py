@@ -173,7 +173,8 @@ def _date_blocks(chunks: list, valid_range) -> list:
     if valid_range is None:
         return blocks
     lo, hi = valid_range
-    return [np.where((b >= lo) & (b <= hi), b, np.nan).astype(b.dtype, copy=False) for b in blocks]
+    return [np.where((b >= lo) & (b <= hi), b, np.nan).astype(b.dtype if b.dtype.kind == "f" else np.float32,
+                                                              copy=False) for b in blocks]
 
 
 def _valid_count(blocks) -> int:
