@@ -172,3 +172,11 @@ def test_a_measuring_cube_of_another_stack_is_refused(record):
 
     with pytest.raises(ShapeError, match="time"):
         check_dates(record, CheckSettings(**SMALL), measure_on=record.isel(time=slice(1, None)))
+
+
+def test_resampled_dates_are_named_in_the_verdict(record):
+    checks = check_dates(record, CheckSettings(window=SEASON, correct_shift=True, **SMALL), warn=False)
+    line = next(v for v in checks.lines if v.startswith("co-registration"))
+    # the 1.5 px date (shifted with scipy.ndimage.shift) is resampled, kept and named as such
+    assert "1 date(s) shifted more than 0.2 px, resampled by their measured shift: " + SHIFTED in line
+    assert bool(checks.ledger.sel(time=SHIFTED).used) and SHIFTED in [str(t)[:10] for t in checks.cube.time.values]

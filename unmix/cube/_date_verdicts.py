@@ -105,12 +105,15 @@ def judge_registration(rec: Account, shifts, index: np.ndarray, settings: CheckS
     if unmeasured:
         rec.warn(f"the shift of {len(unmeasured)} date(s) could not be measured ({listed(unmeasured)}: see the "
                  "ledger's reason); they are kept unchecked")
-    done = "resampled" if settings.correct_shift else "left out"
-    rec.say(f"co-registration ({band_label}): largest shift {np.nanmax(size):.2f} px; "
-            f"{len(left) + int(correct.sum())} date(s) shifted more than {limit}"
-            + (f", {done}: {listed(left)}" if left else "")
-            + (f"; {len(warned)} above {WARN_SHIFT:g} px: {listed(warned)}" if warned else "")
-            + (f"; {len(unmeasured)} not measured" if unmeasured else ""), "max_shift")
+    head = f"co-registration ({band_label}): largest shift {np.nanmax(size):.2f} px; "
+    tail = f"; {len(unmeasured)} not measured" if unmeasured else ""
+    if settings.correct_shift:
+        rec.say(head + f"{len(warned)} date(s) shifted more than {WARN_SHIFT:g} px, resampled by their measured shift"
+                + (f": {listed(warned)}" if warned else "") + tail, "correct_shift")
+        return correct
+    rec.say(head + f"{len(left)} date(s) shifted more than {limit}" + (f", left out: {listed(left)}" if left else "")
+            + (f"; {len(warned)} above {WARN_SHIFT:g} px, kept: {listed(warned)}" if warned else "") + tail,
+            "max_shift")
     return correct
 
 
