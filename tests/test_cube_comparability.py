@@ -127,6 +127,11 @@ def test_radiometry_on_cube_recovers_gain_offset_and_normalises():
     ok = ~changed
     diff = (out.isel(time=2) - cube.isel(time=0)).values[:, ok]
     assert np.abs(diff).mean() < 0.002  # back on the reference's scale within the added noise
+    # a date without a fit (its gain and offset unknown) is unmixed as it is, never blanked
+    unfitted = fits.copy(deep=True)
+    unfitted["gain"].loc[{"time": "2021-03-01"}] = np.nan
+    unfitted["offset"].loc[{"time": "2021-03-01"}] = np.nan
+    np.testing.assert_array_equal(normalise_cube(cube, unfitted).isel(time=2).values, arr[2])
 
 
 def test_scene_sample_equals_numpy_indexing():

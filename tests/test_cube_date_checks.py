@@ -180,3 +180,18 @@ def test_resampled_dates_are_named_in_the_verdict(record):
     # the 1.5 px date (shifted with scipy.ndimage.shift) is resampled, kept and named as such
     assert "1 date(s) shifted more than 0.2 px, resampled by their measured shift: " + SHIFTED in line
     assert bool(checks.ledger.sel(time=SHIFTED).used) and SHIFTED in [str(t)[:10] for t in checks.cube.time.values]
+
+
+def test_normalising_keeps_a_date_without_a_fit_as_it_is(record):
+    # one September date almost all missing: too few pixels for IR-MAD; normalising leaves it as it is and
+    # says so in the ledger, instead of turning it into no data
+    gappy_date = "2017-09-11"
+    values = record.values.copy()
+    k = list(pd.to_datetime(record.time.values).strftime("%Y-%m-%d")).index(gappy_date)
+    values[k, :, 6:, :] = np.nan
+    cube = record.copy(data=da.from_array(values, chunks=(1, 3, 64, 64)))
+    checks = check_dates(cube, CheckSettings(window=SEASON, normalise=True, **SMALL), warn=False)
+    reason = str(checks.ledger.sel(time=gappy_date).reason.values)
+    assert "too few" in reason and "not normalised (no fit)" in reason and bool(checks.ledger.sel(time=gappy_date).used)
+    np.testing.assert_array_equal(checks.cube.sel(time=gappy_date).values, values[k])
+    assert any("unmixed as they are" in line for line in checks.lines)

@@ -132,6 +132,8 @@ def judge_radiometry(rec: Account, fits, index: np.ndarray, settings: CheckSetti
             rec.flags[i].append(f"radiometry: {flag}")
         if flag.startswith(("too few", "not measured")):
             unmeasured.append(rec.day(i))  # no invariant pixels to fit: said in the ledger, not a departure
+            if settings.normalise:  # nothing to apply: the date is unmixed as it is (normalise_cube)
+                rec.flags[i].append("not normalised (no fit)")
         elif departs:  # (a note on the fit, e.g. IR-MAD still moving, stays in the ledger: not a departure)
             g = gain[j]
             k = int(np.nanargmax(np.abs(g - 1.0))) if np.isfinite(g).any() else 0
@@ -148,6 +150,7 @@ def judge_radiometry(rec: Account, fits, index: np.ndarray, settings: CheckSetti
             rec.warn(text + "; normalising applies the fitted gains and offsets, or such dates can be left out",
                      "normalise", "exclude_radiometry")
     rec.say(f"radiometry: {len(flagged)} date(s) flagged" + (f" ({listed(flagged)})" if flagged else "")
-            + (f"; {len(unmeasured)} not measurable (too few invariant pixels, see the ledger)" if unmeasured else "")
+            + (f"; {len(unmeasured)} not measurable (too few invariant pixels, see the ledger)"
+               + (", unmixed as they are" if settings.normalise else "") if unmeasured else "")
             + ("; left out" if settings.exclude_radiometry and flagged else "")
             + ("; normalised" if settings.normalise else "; measured, not applied"))

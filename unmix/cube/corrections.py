@@ -52,9 +52,16 @@ def correct_registration(cube: xr.DataArray, shifts: xr.Dataset, *, order: int =
 
 
 def normalise_cube(cube: xr.DataArray, fits: xr.Dataset) -> xr.DataArray:
-    """Apply the fitted gain and offset per date and band (lazy): ``offset + gain * cube``."""
-    gain = fits["gain"].reindex(time=cube["time"], band=cube["band"]).astype(cube.dtype)
-    offset = fits["offset"].reindex(time=cube["time"], band=cube["band"]).astype(cube.dtype)
+    """Apply the fitted gain and offset per date and band (lazy): ``offset + gain * cube``.
+
+    A date or band without a fit (NaN gain or offset: too few invariant pixels, a date alone in its sensor,
+    a date not in ``fits``) is left as it is (gain 1, offset 0), never blanked; the ledger says which.
+    """
+    gain = fits["gain"].reindex(time=cube["time"], band=cube["band"])
+    offset = fits["offset"].reindex(time=cube["time"], band=cube["band"])
+    fitted = gain.notnull() & offset.notnull()
+    gain = gain.where(fitted, 1.0).astype(cube.dtype)
+    offset = offset.where(fitted, 0.0).astype(cube.dtype)
     out = (offset + gain * cube).transpose(*cube.dims)
     return out.assign_attrs(cube.attrs, radiometric_normalisation="IR-MAD + orthogonal regression",
                             normalisation_reference=fits.attrs.get("reference", ""))
