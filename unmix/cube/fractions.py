@@ -22,7 +22,7 @@ import xarray as xr
 
 from ..errors import BandMismatchError, InputError, ShapeError
 from ..solvers import Constraint, check_endmembers, estimate_fractions
-from .georef import georef_of
+from .georef import georef_attrs
 from .plausible import DEFAULT_VALID_RANGE, check_valid_range, implausible_counts, screen_block
 
 __all__ = ["unmix_cube"]
@@ -275,8 +275,7 @@ def _finish(cube: xr.DataArray, fractions: xr.DataArray, rmse: xr.DataArray, val
     )
     # the cube's CRS and transform, wherever it keeps them (grid-mapping coordinate or attributes), as
     # attributes of every gridded variable; the grid-mapping coordinate itself is carried with its attributes
-    wkt, transform = georef_of(cube)
-    georef = {k: v for k, v in (("crs_wkt", wkt), ("transform", transform)) if v is not None}
+    georef = georef_attrs(cube)
     for da_ in (fractions, rmse, valid_count):
         da_.attrs.update(georef)
 

@@ -6,7 +6,7 @@ from __future__ import annotations
 import numpy as np
 import xarray as xr
 
-__all__ = ["georef_of", "pixel_area_m2", "pixel_area_rows", "transform_from_coords"]
+__all__ = ["georef_attrs", "georef_of", "pixel_area_m2", "pixel_area_rows", "transform_from_coords"]
 
 
 def transform_from_coords(obj: xr.Dataset | xr.DataArray) -> tuple[float, ...] | None:
@@ -42,6 +42,13 @@ def georef_of(obj: xr.Dataset | xr.DataArray) -> tuple[str | None, tuple[float, 
     if transform is None:
         transform = transform_from_coords(obj)
     return wkt, transform
+
+
+def georef_attrs(obj: xr.Dataset | xr.DataArray) -> dict:
+    """``crs_wkt`` and ``transform`` of :func:`georef_of` as attributes for gridded variables (the ones
+    known only)."""
+    wkt, transform = georef_of(obj)
+    return {k: v for k, v in (("crs_wkt", wkt), ("transform", transform)) if v is not None}
 
 
 def _crs_units(wkt: str):

@@ -56,7 +56,7 @@ from ..trajectory import Rule, check_rule_names, effect_sizes, label_trajectorie
 from ..trajectory.labels import _check_thresholds
 from ..trend import DEFAULT_CORRECTION, MannKendallCorrection, fdr
 from ._trend_outputs import _add_rules, _annotate
-from .georef import georef_of
+from .georef import georef_attrs
 from .seasons import SeasonScheme, _season_scheme, season_labels
 
 __all__ = ["SeasonScheme", "trend_cube", "season_labels", "TREND_VARIABLES"]
@@ -336,8 +336,7 @@ def trend_cube(
         coords["spatial_ref"] = ds_in.coords["spatial_ref"]
     # the CRS and transform as attributes too, wherever the fractions keep them (a product read back has the
     # grid-mapping coordinate; unmix_cube's result in memory may carry attributes only)
-    wkt, transform = georef_of(ds_in)
-    georef = {k: v for k, v in (("crs_wkt", wkt), ("transform", transform)) if v is not None}
+    georef = georef_attrs(ds_in)
     for var in data_vars.values():
         if var.dims[-2:] == ("y", "x"):
             var.attrs.update(georef)
