@@ -36,6 +36,7 @@ from unmix.comparability import (
     valid_pixels,
 )
 from unmix.cube.corrections import correct_registration, normalise_cube
+from unmix.cube.plausible import screen_block
 from unmix.cube.radiometry import MIN_INVARIANT, SAMPLE, fit_sample, one_blas_thread, sample_scene, window_picks
 from unmix.cube.radiometry import date_label as _date_label
 from unmix.errors import UnknownNameError
@@ -151,8 +152,8 @@ def _date_task(ref_fields, blocks, *, bands, picks, settings):
 
 
 def _block_reads(cube: xr.DataArray, windows, valid_range=None) -> list:
-    """One delayed list of (band, y, x) blocks per date: the windows of every band of ``cube``, values
-    outside ``valid_range`` (low, high) set to NaN.
+    """One delayed list of (band, y, x) blocks per date: the windows of every band of ``cube``, pixels with
+    a band outside ``valid_range`` (low, high) set to NaN.
 
     Each window is sliced once over all dates (one chunk per date, its chunk's read, sliced), rather than
     once per date: on 40 dates and 4 windows, 160 slices took 0.3 s to build before anything was read.
@@ -168,13 +169,14 @@ def _block_reads(cube: xr.DataArray, windows, valid_range=None) -> list:
 
 
 def _date_blocks(chunks: list, valid_range) -> list:
-    """The (band, y, x) block of each one-date chunk (1, band, y, x), NaN outside ``valid_range``."""
+    """The (band, y, x) block of each one-date chunk (1, band, y, x); pixels with a band outside
+    ``valid_range`` screened as unmixing screens them (:func:`unmix.cube.plausible.screen_block`)."""
     blocks = [np.asarray(c[0]) for c in chunks]
     if valid_range is None:
         return blocks
-    lo, hi = valid_range
-    return [np.where((b >= lo) & (b <= hi), b, np.nan).astype(b.dtype if b.dtype.kind == "f" else np.float32,
-                                                              copy=False) for b in blocks]
+    # band last for the screen (the reader's own layout: no copy); integers become float32 to hold NaN
+    return [screen_block((b if b.dtype.kind == "f" else b.astype(np.float32)).transpose(1, 2, 0),
+                         valid_range)[0].transpose(2, 0, 1) for b in blocks]
 
 
 def _valid_count(blocks) -> int:
@@ -280,8 +282,8 @@ def measure_registration(cube: xr.DataArray, *, band, reference, n_blocks: int =
     memory : int
         Bytes the blocks of every date may take while the reference is chosen (:data:`BLOCK_MEMORY`).
     valid_range : (float, float), optional
-        Values outside it are no data for the measures (an undeclared fill value such as 1e30), applied
-        to the blocks read.
+        Pixels with a band outside it are no data for the measures (an undeclared fill value such as
+        1e30), screened in the blocks read.
 
     Returns
     -------
@@ -346,7 +348,7 @@ def measure_radiometry(cube: xr.DataArray, *, reference, by: str | None = None, 
     sample, seed, threshold, min_pixels, min_r2, gain_tolerance
         The sample and the fit's settings.
     valid_range : (float, float), optional
-        Sampled values outside it are no data.
+        Sampled pixels with a band outside it are no data.
 
     Returns
     -------
@@ -359,9 +361,7 @@ def measure_radiometry(cube: xr.DataArray, *, reference, by: str | None = None, 
     ----------
     Canty, M. J. and Nielsen, A. A. (2008). doi:10.1016/j.rse.2007.07.013
     """
-    values = sample_scene(cube, sample, seed)
-    if valid_range is not None:
-        values[(values < valid_range[0]) | (values > valid_range[1])] = np.nan
+    values, _ = screen_block(sample_scene(cube, sample, seed), valid_range)  # (time, pixel, band)
     if reference is None:  # the date with most valid pixel-bands in the sample: nothing more to read
         i_ref = int(np.argmax(np.isfinite(values).sum(axis=(1, 2))))
     else:
