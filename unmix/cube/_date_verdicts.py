@@ -13,6 +13,7 @@ import xarray as xr
 
 from ..comparability import WARN_SHIFT
 from ..errors import ComparabilityWarning
+from .radiometry import date_label
 
 if TYPE_CHECKING:
     from .date_checks import CheckSettings
@@ -25,10 +26,6 @@ class Verdict(NamedTuple):
 
     text: str
     settings: tuple[str, ...] = ()
-
-
-def day(value) -> str:
-    return str(np.datetime64(value, "D"))
 
 
 def listed(items: list[str], most: int = 4) -> str:
@@ -55,11 +52,11 @@ class Account:
         self.warnings.append(ComparabilityWarning(text, settings=settings))
 
     def day(self, i: int) -> str:
-        return day(self.times[i])
+        return date_label(self.times[i])
 
 
 def reference_verdict(rec: Account, ref, fits, settings: CheckSettings, sub: xr.DataArray, choice: str = "") -> None:
-    text = f"reference date: {day(ref)}" + (f" ({choice or 'most valid pixels'})" if settings.reference is None else "")
+    text = f"reference date: {date_label(ref)}" + (f" ({choice or 'most valid pixels'})" if settings.reference is None else "")
     if fits is not None and fits.attrs.get("grouped_by"):
         sensors = np.asarray(sub["sensor"].values).astype(str)
         refs = {s: r for s, r in zip(sensors, fits["reference"].values) if r}
@@ -95,7 +92,7 @@ def judge_registration(rec: Account, shifts, index: np.ndarray, settings: CheckS
                 rec.flags[i].append(f"shifted {size[j]:.2f} px")
     if warned and not settings.correct_shift:
         rec.warn(f"dates shifted more than {WARN_SHIFT:g} pixel against "
-                 f"{day(shifts.attrs.get('reference', rec.times[index[0]]))}: {listed(warned)}; check the "
+                 f"{date_label(shifts.attrs.get('reference', rec.times[index[0]]))}: {listed(warned)}; check the "
                  "co-registration (resampling each date by its measured shift corrects them)", "correct_shift")
     measured = len(index) - 1 - len(unmeasured)
     if measured <= 0:

@@ -24,10 +24,10 @@ import xarray as xr
 
 from ..comparability import GAIN_TOLERANCE, MAX_SHIFT, DateWindow
 from ..errors import ComparabilityWarning, InputError, ShapeError
-from ._date_verdicts import Account, Verdict, day, judge_radiometry, judge_registration, reference_verdict
+from ._date_verdicts import Account, Verdict, judge_radiometry, judge_registration, reference_verdict
 from .comparability import N_BLOCKS, reference_date
 from .phenology import CompositeMethod
-from .radiometry import MIN_INVARIANT
+from .radiometry import MIN_INVARIANT, date_label
 
 __all__ = ["MIN_DATES", "CheckSettings", "Verdict", "DateChecks", "check_dates"]
 
@@ -289,7 +289,7 @@ def check_dates(cube: xr.DataArray, settings: CheckSettings = CheckSettings(), *
                           product=cube["product"].values if "product" in cube.coords else None,
                           used=np.array([not r for r in rec.reasons]),
                           reason=["; ".join(r + f) for r, f in zip(rec.reasons, rec.flags)], **measured)
-    ledger.attrs.update(verdicts=[v.text for v in rec.verdicts], reference_date=day(ref) if ref is not None else "",
+    ledger.attrs.update(verdicts=[v.text for v in rec.verdicts], reference_date=date_label(ref) if ref is not None else "",
                         registration_band=band_label if shifts is not None else "")
     if warn:
         for w in rec.warnings:
