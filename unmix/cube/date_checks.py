@@ -27,6 +27,7 @@ from ..errors import ComparabilityWarning, InputError, ShapeError
 from ._date_verdicts import Account, Verdict, judge_radiometry, judge_registration, reference_verdict
 from .comparability import N_BLOCKS, reference_date
 from .phenology import CompositeMethod
+from .plausible import DEFAULT_VALID_RANGE
 from .radiometry import MIN_INVARIANT, date_label
 
 __all__ = ["MIN_DATES", "CheckSettings", "Verdict", "DateChecks", "check_dates"]
@@ -42,7 +43,8 @@ class CheckSettings:
     Parameters
     ----------
     reference : str or date, optional
-        Date every other date is compared with; None: the date with most valid pixels. With several
+        Date every other date is compared with; None: the date with most valid pixels in the measured
+        blocks. With several
         sensors it serves its own sensor; each other sensor's dates are compared with that sensor's date
         with most valid pixels in the measured blocks.
     band : str or sequence of str, optional
@@ -56,7 +58,8 @@ class CheckSettings:
     exclude_radiometry : bool
         Leave out the dates whose radiometry is flagged (a gain beyond ``gain_tolerance``, a poor fit).
     valid_range : (float, float), optional
-        Plausible reflectance; values outside are no data for the measures. None: every value counts.
+        Plausible reflectance (default: unmixing's, :data:`unmix.cube.plausible.DEFAULT_VALID_RANGE`); pixels
+        with a band outside are no data for the measures. None: every value counts.
     gain_tolerance : float
         A date whose gain departs from 1 by more than this is flagged.
     registration, radiometry : bool
@@ -80,7 +83,7 @@ class CheckSettings:
     correct_shift: bool = False
     normalise: bool = False
     exclude_radiometry: bool = False
-    valid_range: tuple[float, float] | None = (-0.5, 2.0)
+    valid_range: tuple[float, float] | None = DEFAULT_VALID_RANGE
     gain_tolerance: float = GAIN_TOLERANCE
     registration: bool = True
     radiometry: bool = True
